@@ -1,0 +1,39 @@
+/* Declarations shared inside libweft only; never included by server/ or installed. */
+#ifndef WEFT_CORE_INTERNAL_H
+#define WEFT_CORE_INTERNAL_H
+
+#include <lmdb.h>
+#include <stdint.h>
+
+#include "weft/error.h"
+#include "weft/store.h"
+
+/** The store handle (store.c); snapshot.c reads its environment and databases. */
+struct weft_store {
+    MDB_env *env;
+    MDB_dbi catalog, blobs, head;
+    char *dir;
+    bool is_readonly;
+};
+
+/** Stored blob header, WEFT_BLOB_HEADER_BYTES long, little-endian as the host writes it. */
+typedef struct weft_blob_header {
+    char magic[8];                       /* "WEFTBLB1" */
+    uint32_t dtype;
+    uint32_t ndim;
+    uint64_t shape[WEFT_BLOB_MAX_DIMS];
+    uint64_t nbytes;                     /* bytes of data after the header */
+} weft_blob_header;
+
+#define WEFT_BLOB_MAGIC "WEFTBLB1"
+
+/** Translate an LMDB return code into a weft error with @p what as context. */
+weft_err weft_store_mdb_error(int rc, const char *what, weft_error *err);
+
+/** Big-endian 8-byte key of @p version into @p out. */
+void weft_store_version_key(uint64_t version, unsigned char out[8]);
+
+/** Blob key: 8-byte big-endian version then the name's bytes; @return key length. */
+size_t weft_store_blob_key(uint64_t version, const char *name, unsigned char *out, size_t cap);
+
+#endif

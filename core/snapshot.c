@@ -1,0 +1,364 @@
+/* A stored snapshot opened for reading (include/weft/snapshot.h).
+ * Invariant: every blob pointer points into the LMDB map through txn, which stays open until
+ * the last reference is released; blobs were checked against the manifest and their CRC-32. */
+#include "internal.h"
+
+#include <stdatomic.h>
+#include <stdlib.h>
+#include <string.h>
+#include <sys/mman.h>
+#include <unistd.h>
+#include <zlib.h>
+
+#include "weft/alloc.h"
+#include "weft/snapshot.h"
+
+struct named_blob {
+    const char *name;   /* a key of the manifest's "blobs" object: lives with the manifest */
+    weft_blob blob;
+};
+
+struct weft_snapshot {
+    atomic_uint refs;
+    MDB_txn *txn;
+    uint64_t version;
+    json_t *manifest;
+    size_t n_blobs;
+    struct named_blob *blobs;
+};
+
+static weft_err fail_blob(weft_error *err, uint64_t version, const char *name, const char *why)
+{
+    return weft_error_set(err, WEFT_ERR_CORRUPT, "version %llu, blob '%s': %s",
+                          (unsigned long long)version, name, why);
+}
+
+static bool dtype_from_name(const char *s, weft_dtype *out)
+{
+    static const weft_dtype all[] = { WEFT_DTYPE_U8, WEFT_DTYPE_U32, WEFT_DTYPE_U64,
+                                      WEFT_DTYPE_F32 };
+    for (size_t i = 0; s && i < sizeof all / sizeof all[0]; i++)
+        if (!strcmp(s, weft_dtype_name(all[i]))) {
+            *out = all[i];
+            return true;
+        }
+    return false;
+}
+
+/* Tell the kernel we will read the range soon; the CRC pass then faults the pages in. */
+static void advise_willneed(const void *p, size_t n)
+{
+    long page = sysconf(_SC_PAGESIZE);
+    if (page <= 0 || n == 0)
+        return;
+    uintptr_t a = (uintptr_t)p & ~((uintptr_t)page - 1);
+    (void)posix_madvise((void *)a, n + ((uintptr_t)p - a), POSIX_MADV_WILLNEED);
+}
+
+/* Read blob @p name described by @p desc in the manifest, check header, shape and CRC. */
+static weft_err load_blob(weft_snapshot *snap, const weft_store *s, const char *name,
+                          const json_t *desc, weft_blob *out, weft_error *err)
+{
+    weft_dtype dtype;
+    const json_t *jshape = json_object_get(desc, "shape");
+    json_int_t bytes = json_integer_value(json_object_get(desc, "bytes"));
+    json_int_t crc = json_integer_value(json_object_get(desc, "crc32"));
+    if (!dtype_from_name(json_string_value(json_object_get(desc, "dtype")), &dtype) ||
+        !json_is_array(jshape) || json_array_size(jshape) == 0 ||
+        json_array_size(jshape) > WEFT_BLOB_MAX_DIMS || bytes < 0)
+        return fail_blob(err, snap->version, name, "manifest entry malformed");
+
+    unsigned char key[8 + WEFT_BLOB_MAX_NAME];
+    size_t klen = weft_store_blob_key(snap->version, name, key, sizeof key);
+    if (klen == 0)
+        return fail_blob(err, snap->version, name, "name too long");
+    MDB_val k = { klen, key }, v;
+    int rc = mdb_get(snap->txn, s->blobs, &k, &v);
+    if (rc == MDB_NOTFOUND)
+        return fail_blob(err, snap->version, name, "listed in the manifest but not stored");
+    if (rc)
+        return weft_store_mdb_error(rc, name, err);
+    if (v.mv_size < WEFT_BLOB_HEADER_BYTES)
+        return fail_blob(err, snap->version, name, "shorter than its header");
+    weft_blob_header h;
+    memcpy(&h, v.mv_data, sizeof h);   /* small values are not aligned */
+    if (memcmp(h.magic, WEFT_BLOB_MAGIC, sizeof h.magic) != 0)
+        return fail_blob(err, snap->version, name, "bad header magic");
+    if (h.dtype != (uint32_t)dtype || h.ndim != json_array_size(jshape) ||
+        h.nbytes != (uint64_t)bytes || h.nbytes != v.mv_size - WEFT_BLOB_HEADER_BYTES)
+        return fail_blob(err, snap->version, name, "header disagrees with the manifest");
+    memset(out, 0, sizeof *out);
+    size_t count = 1;
+    for (size_t i = 0; i < h.ndim; i++) {
+        json_int_t dim = json_integer_value(json_array_get(jshape, i));
+        if (dim < 0 || (uint64_t)dim != h.shape[i])
+            return fail_blob(err, snap->version, name, "shape disagrees with the manifest");
+        out->shape[i] = (size_t)h.shape[i];
+        count *= out->shape[i];
+    }
+    if (count * weft_dtype_size(dtype) != h.nbytes)
+        return fail_blob(err, snap->version, name, "size disagrees with its shape");
+    out->data = (const char *)v.mv_data + WEFT_BLOB_HEADER_BYTES;
+    out->dtype = dtype;
+    out->ndim = h.ndim;
+    out->nbytes = (size_t)h.nbytes;
+    advise_willneed(out->data, out->nbytes);
+    uLong actual = crc32_z(crc32_z(0L, Z_NULL, 0), out->data, out->nbytes);
+    if ((json_int_t)actual != crc)
+        return fail_blob(err, snap->version, name, "CRC-32 mismatch: stored data is damaged");
+    out->crc32 = (uint32_t)actual;
+    return WEFT_OK;
+}
+
+weft_err weft_snapshot_open(weft_store *s, uint64_t version, weft_snapshot **out,
+                            weft_error *err)
+{
+    weft_snapshot *snap = calloc(1, sizeof *snap);
+    if (!snap)
+        return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory opening a snapshot");
+    atomic_init(&snap->refs, 1);
+    snap->version = version;
+    weft_err e = WEFT_OK;
+    int rc = mdb_txn_begin(s->env, NULL, MDB_RDONLY, &snap->txn);
+    if (rc) {
+        e = weft_store_mdb_error(rc, "begin read", err);
+        goto done;
+    }
+    unsigned char key[8];
+    weft_store_version_key(version, key);
+    MDB_val k = { 8, key }, v;
+    rc = mdb_get(snap->txn, s->catalog, &k, &v);
+    if (rc) {
+        e = rc == MDB_NOTFOUND
+                ? weft_error_set(err, WEFT_ERR_NOT_FOUND, "no snapshot version %llu",
+                                 (unsigned long long)version)
+                : weft_store_mdb_error(rc, "read catalog", err);
+        goto done;
+    }
+    json_error_t jerr;
+    snap->manifest = json_loadb(v.mv_data, v.mv_size, JSON_REJECT_DUPLICATES, &jerr);
+    const json_t *blobs = json_object_get(snap->manifest, "blobs");
+    if (!json_is_object(blobs)) {
+        e = weft_error_set(err, WEFT_ERR_CORRUPT, "manifest of version %llu is malformed",
+                           (unsigned long long)version);
+        goto done;
+    }
+    snap->blobs = weft_calloc_array(json_object_size(blobs), sizeof *snap->blobs);
+    if (!snap->blobs) {
+        e = weft_error_set(err, WEFT_ERR_NOMEM, "out of memory opening a snapshot");
+        goto done;
+    }
+    const char *name;
+    const json_t *desc;
+    json_object_foreach((json_t *)blobs, name, desc) {
+        struct named_blob *nb = &snap->blobs[snap->n_blobs];
+        if ((e = load_blob(snap, s, name, desc, &nb->blob, err)) != WEFT_OK)
+            goto done;
+        nb->name = name;
+        snap->n_blobs++;
+    }
+done:
+    if (e != WEFT_OK) {
+        weft_snapshot_release(snap);
+        return e;
+    }
+    *out = snap;
+    return WEFT_OK;
+}
+
+weft_snapshot *weft_snapshot_acquire(weft_snapshot *snap)
+{
+    atomic_fetch_add_explicit(&snap->refs, 1, memory_order_relaxed);
+    return snap;
+}
+
+void weft_snapshot_release(weft_snapshot *snap)
+{
+    if (!snap || atomic_fetch_sub_explicit(&snap->refs, 1, memory_order_acq_rel) != 1)
+        return;
+    if (snap->txn)
+        mdb_txn_abort(snap->txn);   /* env opened MDB_NOTLS: any thread may end it */
+    json_decref(snap->manifest);
+    free(snap->blobs);
+    free(snap);
+}
+
+uint64_t weft_snapshot_version(const weft_snapshot *snap)
+{
+    return snap->version;
+}
+
+const json_t *weft_snapshot_manifest(const weft_snapshot *snap)
+{
+    return snap->manifest;
+}
+
+bool weft_snapshot_blob(const weft_snapshot *snap, const char *name, weft_blob *out)
+{
+    for (size_t i = 0; i < snap->n_blobs; i++)
+        if (!strcmp(snap->blobs[i].name, name)) {
+            *out = snap->blobs[i].blob;
+            return true;
+        }
+    return false;
+}
+
+/* Fetch blob @p name of @p dtype with @p ndim dims, or report it missing or mistyped. */
+static weft_err need_blob(const weft_snapshot *snap, const char *name, weft_dtype dtype,
+                          size_t ndim, weft_blob *out, weft_error *err)
+{
+    if (!weft_snapshot_blob(snap, name, out))
+        return weft_error_set(err, WEFT_ERR_CORRUPT, "version %llu: blob '%s' missing",
+                              (unsigned long long)snap->version, name);
+    if (out->dtype != dtype || out->ndim != ndim)
+        return fail_blob(err, snap->version, name, "unexpected dtype or dimensions");
+    return WEFT_OK;
+}
+
+static weft_err names_view(const weft_snapshot *snap, const char *prefix, weft_names_view *out,
+                           weft_error *err)
+{
+    char n_off[WEFT_BLOB_MAX_NAME], n_bytes[WEFT_BLOB_MAX_NAME], n_slots[WEFT_BLOB_MAX_NAME];
+    snprintf(n_off, sizeof n_off, "%s.off", prefix);
+    snprintf(n_bytes, sizeof n_bytes, "%s.bytes", prefix);
+    snprintf(n_slots, sizeof n_slots, "%s.slots", prefix);
+    weft_blob off, bytes, slots;
+    weft_err e;
+    if ((e = need_blob(snap, n_off, WEFT_DTYPE_U64, 1, &off, err)) ||
+        (e = need_blob(snap, n_bytes, WEFT_DTYPE_U8, 1, &bytes, err)) ||
+        (e = need_blob(snap, n_slots, WEFT_DTYPE_U32, 1, &slots, err)))
+        return e;
+    if (off.shape[0] == 0)
+        return fail_blob(err, snap->version, n_off, "empty offset table");
+    weft_names_view v = { .n = off.shape[0] - 1, .cap = slots.shape[0], .off = off.data,
+                          .bytes = bytes.data, .slots = slots.data, .n_bytes = bytes.shape[0] };
+    if ((e = weft_names_check(&v, err)) != WEFT_OK)
+        return e;
+    *out = v;
+    return WEFT_OK;
+}
+
+static weft_err csr_view(const weft_snapshot *snap, const char *prefix, size_t n_rows,
+                         size_t n_cols, size_t n_rel, weft_csr *out, weft_error *err)
+{
+    char n_off[WEFT_BLOB_MAX_NAME], n_rel_[WEFT_BLOB_MAX_NAME], n_nbr[WEFT_BLOB_MAX_NAME];
+    snprintf(n_off, sizeof n_off, "%s.off", prefix);
+    snprintf(n_rel_, sizeof n_rel_, "%s.rel", prefix);
+    snprintf(n_nbr, sizeof n_nbr, "%s.nbr", prefix);
+    weft_blob off, rel, nbr;
+    weft_err e;
+    if ((e = need_blob(snap, n_off, WEFT_DTYPE_U64, 1, &off, err)) ||
+        (e = need_blob(snap, n_rel_, WEFT_DTYPE_U32, 1, &rel, err)) ||
+        (e = need_blob(snap, n_nbr, WEFT_DTYPE_U32, 1, &nbr, err)))
+        return e;
+    const uint64_t *o = off.data;
+    const uint32_t *r = rel.data, *u = nbr.data;
+    if (off.shape[0] != n_rows + 1 || rel.shape[0] != nbr.shape[0] || o[0] != 0 ||
+        o[n_rows] != nbr.shape[0])
+        return fail_blob(err, snap->version, n_off, "offsets disagree with the node table");
+    for (size_t i = 0; i < n_rows; i++)
+        if (o[i] > o[i + 1])
+            return fail_blob(err, snap->version, n_off, "offsets not rising");
+    for (size_t j = 0; j < nbr.shape[0]; j++)
+        if (r[j] >= n_rel || u[j] >= n_cols)
+            return fail_blob(err, snap->version, n_nbr, "id out of range");
+    /* The CSR struct is shared with the builder, whose arrays are writable; these point into
+     * the read-only map and are never written through (snapshot.h says so). */
+    out->n_rows = n_rows;
+    out->off = (uint64_t *)(uintptr_t)o;
+    out->rel = (uint32_t *)(uintptr_t)r;
+    out->nbr = (uint32_t *)(uintptr_t)u;
+    return WEFT_OK;
+}
+
+weft_err weft_snapshot_link_view(const weft_snapshot *snap, weft_link_view *out,
+                                 weft_error *err)
+{
+    const json_t *link = json_object_get(snap->manifest, "link");
+    if (!json_is_object(link))
+        return weft_error_set(err, WEFT_ERR_NOT_FOUND, "version %llu holds no link model",
+                              (unsigned long long)snap->version);
+    weft_link_view v;
+    memset(&v, 0, sizeof v);
+    const char *kind = json_string_value(json_object_get(link, "kind"));
+    if (!kind || strcmp(kind, "dot") != 0)
+        return weft_error_set(err, WEFT_ERR_CORRUPT, "version %llu: unknown link model '%s'",
+                              (unsigned long long)snap->version, kind ? kind : "");
+    v.kind = WEFT_LINK_DOT;
+    v.has_self_loops = json_is_true(json_object_get(link, "self_loops"));
+    v.is_probability = json_is_true(json_object_get(link, "probability"));
+    weft_err e;
+    if ((e = names_view(snap, "nodes", &v.nodes, err)) ||
+        (e = names_view(snap, "relations", &v.relations, err)))
+        return e;
+    v.n_nodes = v.nodes.n;
+    v.n_relations = v.relations.n;
+    weft_blob ent;
+    if ((e = need_blob(snap, "entity", WEFT_DTYPE_F32, 2, &ent, err)))
+        return e;
+    if (ent.shape[0] != v.n_nodes || ent.shape[1] == 0)
+        return fail_blob(err, snap->version, "entity", "rows disagree with the node table");
+    v.dim = ent.shape[1];
+    v.entity = ent.data;
+    if ((e = csr_view(snap, "known_out", v.n_nodes, v.n_nodes, v.n_relations, &v.known_out,
+                      err)) ||
+        (e = csr_view(snap, "known_in", v.n_nodes, v.n_nodes, v.n_relations, &v.known_in, err)))
+        return e;
+    *out = v;
+    return WEFT_OK;
+}
+
+static weft_err put_names(weft_store_writer *w, const char *prefix, const weft_names *t,
+                          weft_error *err)
+{
+    weft_names_view v = weft_names_as_view(t);
+    char name[WEFT_BLOB_MAX_NAME];
+    size_t n_off = v.n + 1, n_bytes = v.n_bytes, cap = v.cap;
+    weft_err e;
+    snprintf(name, sizeof name, "%s.off", prefix);
+    if ((e = weft_store_writer_put(w, name, WEFT_DTYPE_U64, 1, &n_off, v.off, err)))
+        return e;
+    snprintf(name, sizeof name, "%s.bytes", prefix);
+    if ((e = weft_store_writer_put(w, name, WEFT_DTYPE_U8, 1, &n_bytes, v.bytes, err)))
+        return e;
+    snprintf(name, sizeof name, "%s.slots", prefix);
+    return weft_store_writer_put(w, name, WEFT_DTYPE_U32, 1, &cap, v.slots, err);
+}
+
+static weft_err put_csr(weft_store_writer *w, const char *prefix, const weft_csr *c,
+                        weft_error *err)
+{
+    char name[WEFT_BLOB_MAX_NAME];
+    size_t n_off = c->n_rows + 1, n_nnz = (size_t)c->off[c->n_rows];
+    weft_err e;
+    snprintf(name, sizeof name, "%s.off", prefix);
+    if ((e = weft_store_writer_put(w, name, WEFT_DTYPE_U64, 1, &n_off, c->off, err)))
+        return e;
+    snprintf(name, sizeof name, "%s.rel", prefix);
+    if ((e = weft_store_writer_put(w, name, WEFT_DTYPE_U32, 1, &n_nnz, c->rel, err)))
+        return e;
+    snprintf(name, sizeof name, "%s.nbr", prefix);
+    return weft_store_writer_put(w, name, WEFT_DTYPE_U32, 1, &n_nnz, c->nbr, err);
+}
+
+weft_err weft_snapshot_put_link(weft_store_writer *w, json_t *manifest, const weft_graph *g,
+                                const weft_link_model *m, bool is_probability, weft_error *err)
+{
+    if (!g->is_final || m->n_entities != g->nodes.n || m->n_relations != g->relations.n)
+        return weft_error_set(err, WEFT_ERR_INVALID,
+                              "model of %zu nodes does not match the graph's %zu", m->n_entities,
+                              g->nodes.n);
+    size_t shape[2] = { m->n_entities, m->dim };
+    weft_err e;
+    if ((e = put_names(w, "nodes", &g->nodes, err)) ||
+        (e = put_names(w, "relations", &g->relations, err)) ||
+        (e = weft_store_writer_put(w, "entity", WEFT_DTYPE_F32, 2, shape, m->entity, err)) ||
+        (e = put_csr(w, "known_out", &g->out, err)) || (e = put_csr(w, "known_in", &g->in, err)))
+        return e;
+    json_t *link = json_pack("{s:s, s:I, s:b, s:b}", "kind", weft_model_kind_name(m->kind),
+                             "dim", (json_int_t)m->dim, "self_loops", g->n_self_loops > 0,
+                             "probability", is_probability);
+    if (!link || json_object_set_new(manifest, "link", link))
+        return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory writing the manifest");
+    return WEFT_OK;
+}

@@ -1,0 +1,97 @@
+/* weft: a stored snapshot opened for reading. Blobs are read in place from the LMDB map
+ * (zero copy) through one read-only transaction that lives as long as the snapshot. */
+#ifndef WEFT_SNAPSHOT_H
+#define WEFT_SNAPSHOT_H
+
+#include <jansson.h>
+#include <stdbool.h>
+#include <stddef.h>
+#include <stdint.h>
+
+#include "weft/error.h"
+#include "weft/graph.h"
+#include "weft/model.h"
+#include "weft/names.h"
+#include "weft/store.h"
+
+/** One blob as stored: data points into the map, read-only. */
+typedef struct weft_blob {
+    const void *data;
+    weft_dtype dtype;
+    size_t ndim;
+    size_t shape[WEFT_BLOB_MAX_DIMS];
+    size_t nbytes;
+    uint32_t crc32;
+} weft_blob;
+
+/** A loaded snapshot. Opaque, reference-counted. */
+typedef struct weft_snapshot weft_snapshot;
+
+/**
+ * Open @p version of @p s: begin a read transaction, read the manifest and every blob it
+ * lists, check each blob's header against the manifest and its CRC-32, then pre-fault the
+ * pages (a read pass) so that no later reader pays for page faults.
+ * @param out  on success a snapshot holding one reference; weft_snapshot_release() it
+ * @return WEFT_OK, WEFT_ERR_NOT_FOUND, WEFT_ERR_CORRUPT (checksum, header or manifest
+ *         mismatch: the message names the blob), WEFT_ERR_STORE, WEFT_ERR_NOMEM
+ * Threads: call from one thread per store at a time (the loader). Cost: O(size) for the CRCs.
+ */
+weft_err weft_snapshot_open(weft_store *s, uint64_t version, weft_snapshot **out,
+                            weft_error *err);
+
+/** Take another reference to @p snap (atomic); returns @p snap. */
+weft_snapshot *weft_snapshot_acquire(weft_snapshot *snap);
+
+/**
+ * Drop a reference; the last one ends the read transaction and frees the snapshot. Every
+ * pointer obtained from it is invalid afterwards. NULL does nothing. Any thread.
+ */
+void weft_snapshot_release(weft_snapshot *snap);
+
+/** Version of @p snap. */
+uint64_t weft_snapshot_version(const weft_snapshot *snap);
+
+/** Manifest of @p snap; borrowed, valid until the last release; never modify it. */
+const json_t *weft_snapshot_manifest(const weft_snapshot *snap);
+
+/** Find blob @p name. @return true and *@p out when present. Pure memory, any thread. */
+bool weft_snapshot_blob(const weft_snapshot *snap, const char *name, weft_blob *out);
+
+/**
+ * The link model of a snapshot as typed read-only views into the map. Pointers are valid
+ * until the snapshot's last release. The CSR pointer members are not const only because
+ * weft_csr is shared with the builder: never write through them.
+ */
+typedef struct weft_link_view {
+    weft_link_kind kind;
+    size_t n_nodes, n_relations, dim;
+    weft_names_view nodes;
+    weft_names_view relations;
+    const float *entity;    /**< (n_nodes, dim) */
+    weft_csr known_out;     /**< every known link by source */
+    weft_csr known_in;      /**< every known link by target */
+    bool has_self_loops;    /**< the known graph holds self-loops (else self is never a candidate) */
+    bool is_probability;    /**< scores pass through the logistic function to a probability */
+} weft_link_view;
+
+/**
+ * Fill @p out from @p snap's blobs, checking shapes against each other and the name tables
+ * (weft_names_check) and the CSR offsets and ids against their bounds.
+ * @return WEFT_OK, WEFT_ERR_NOT_FOUND (no link model), WEFT_ERR_CORRUPT
+ */
+weft_err weft_snapshot_link_view(const weft_snapshot *snap, weft_link_view *out,
+                                 weft_error *err);
+
+/**
+ * Write the blobs of a link model into snapshot writer @p w: the node and relation name
+ * tables with their hash indexes, the entity embeddings of @p m, and every edge of final
+ * graph @p g as the known links by source and by target. Sets @p manifest's "link" object
+ * (kind, dim, self_loops, probability), which weft_snapshot_link_view() reads back.
+ * @param is_probability  the training loss makes logistic(score) a probability
+ * @return WEFT_OK, WEFT_ERR_INVALID (model and graph disagree), and the codes of
+ *         weft_store_writer_put()
+ */
+weft_err weft_snapshot_put_link(weft_store_writer *w, json_t *manifest, const weft_graph *g,
+                                const weft_link_model *m, bool is_probability, weft_error *err);
+
+#endif

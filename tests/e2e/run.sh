@@ -1,0 +1,31 @@
+#!/bin/sh
+# Runs every tests/e2e/test_*.sh in turn. Each script is one group of end-to-end checks:
+# it exits 0 when all its checks pass. Environment given to each: WEFT (the binary),
+# BUILD, TOP (the source tree), E2E_TMP (a fresh directory removed afterwards).
+# The last line is "e2e: N passed, N failed"; the exit status is 0 only when none failed.
+set -u
+TOP=$(cd "$(dirname "$0")/../.." && pwd)
+BUILD=${BUILD:-build}
+case "$BUILD" in /*) ;; *) BUILD="$TOP/$BUILD" ;; esac
+WEFT="$BUILD/weft"
+export TOP BUILD WEFT
+pass=0
+fail=0
+failed=""
+for t in "$TOP"/tests/e2e/test_*.sh; do
+    name=$(basename "$t" .sh)
+    E2E_TMP=$(mktemp -d "${TMPDIR:-/tmp}/weft-e2e.XXXXXX")
+    export E2E_TMP
+    if sh "$t" >"$E2E_TMP.log" 2>&1; then
+        pass=$((pass + 1))
+        echo "[PASS] e2e::$name"
+    else
+        fail=$((fail + 1))
+        failed="$failed $name"
+        echo "[FAIL] e2e::$name"
+        sed 's/^/    /' "$E2E_TMP.log" | tail -n 40
+    fi
+    rm -rf "$E2E_TMP" "$E2E_TMP.log"
+done
+echo "e2e: $pass passed, $fail failed"
+[ "$fail" -eq 0 ]
