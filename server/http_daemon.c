@@ -107,19 +107,34 @@ static enum MHD_Result send_reply(http_daemon *d, struct MHD_Connection *conn,
     return rc;
 }
 
-/* Every route answers from the request line and headers alone, so the response is queued
- * at the first call; a request body, if one comes, is read and dropped. */
+/* A request without a body is answered at the second call, once libmicrohttpd has seen the
+ * whole request, so the connection can stay open for the next one. No route takes a body:
+ * a request announcing one is answered at once, and the connection then closes instead of
+ * reading it. */
+static bool has_body(struct MHD_Connection *conn)
+{
+    const char *length =
+        MHD_lookup_connection_value(conn, MHD_HEADER_KIND, MHD_HTTP_HEADER_CONTENT_LENGTH);
+    return MHD_lookup_connection_value(conn, MHD_HEADER_KIND,
+                                       MHD_HTTP_HEADER_TRANSFER_ENCODING)
+           || (length && strcmp(length, "0") != 0);
+}
+
 static enum MHD_Result on_request(void *cls, struct MHD_Connection *conn, const char *url,
                                   const char *method, const char *version,
                                   const char *upload_data, size_t *upload_data_size,
                                   void **con_cls)
 {
-    static int answered; /* address used as a marker only */
+    static int seen, answered; /* their addresses mark a request's progress in *con_cls */
     (void)version;
     (void)upload_data;
     http_daemon *d = cls;
-    if (*con_cls) {
-        *upload_data_size = 0;
+    if (*con_cls == &answered || *upload_data_size != 0) {
+        *upload_data_size = 0; /* a body nobody reads */
+        return MHD_YES;
+    }
+    if (!*con_cls && !has_body(conn)) {
+        *con_cls = &seen;
         return MHD_YES;
     }
     *con_cls = &answered;
@@ -150,11 +165,11 @@ weft_err http_daemon_start(const http_settings *cfg, http_live *live, http_daemo
     unsigned flags = MHD_USE_INTERNAL_POLLING_THREAD | MHD_USE_EPOLL | MHD_USE_ITC
                      | MHD_USE_ERROR_LOG | (cfg->is_ipv6 ? MHD_USE_IPv6 : 0);
     d->mhd = MHD_start_daemon(flags, 0, NULL, NULL, on_request, d,
+                              MHD_OPTION_EXTERNAL_LOGGER, log_mhd, NULL, /* first, or it warns */
                               MHD_OPTION_SOCK_ADDR, (const struct sockaddr *)&cfg->addr,
                               MHD_OPTION_THREAD_POOL_SIZE, (unsigned int)cfg->n_threads,
                               MHD_OPTION_CONNECTION_TIMEOUT, (unsigned int)HTTP_TIMEOUT_SECONDS,
                               MHD_OPTION_CONNECTION_LIMIT, (unsigned int)HTTP_MAX_CONNECTIONS,
-                              MHD_OPTION_EXTERNAL_LOGGER, log_mhd, NULL,
                               MHD_OPTION_END);
     if (!d->mhd) {
         free(d);
