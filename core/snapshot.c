@@ -16,6 +16,7 @@
 struct named_blob {
     const char *name;   /* a key of the manifest's "blobs" object: lives with the manifest */
     weft_blob blob;
+    void *copy;         /* aligned copy of a small value, else NULL (data is in the map) */
 };
 
 struct weft_snapshot {
@@ -57,7 +58,7 @@ static void advise_willneed(const void *p, size_t n)
 
 /* Read blob @p name described by @p desc in the manifest, check header, shape and CRC. */
 static weft_err load_blob(weft_snapshot *snap, const weft_store *s, const char *name,
-                          const json_t *desc, weft_blob *out, weft_error *err)
+                          const json_t *desc, weft_blob *out, void **copy, weft_error *err)
 {
     weft_dtype dtype;
     const json_t *jshape = json_object_get(desc, "shape");
@@ -99,6 +100,15 @@ static weft_err load_blob(weft_snapshot *snap, const weft_store *s, const char *
     if (count * weft_dtype_size(dtype) != h.nbytes)
         return fail_blob(err, snap->version, name, "size disagrees with its shape");
     out->data = (const char *)v.mv_data + WEFT_BLOB_HEADER_BYTES;
+    if ((uintptr_t)out->data % 8 != 0) {
+        /* Small values live inside a page at any byte offset; large ones (overflow pages)
+         * are aligned by the header. Copy the small ones so typed reads stay aligned. */
+        *copy = weft_alloc_array(h.nbytes ? h.nbytes : 1, 1);
+        if (!*copy)
+            return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory copying blob '%s'", name);
+        memcpy(*copy, out->data, h.nbytes);
+        out->data = *copy;
+    }
     out->dtype = dtype;
     out->ndim = h.ndim;
     out->nbytes = (size_t)h.nbytes;
@@ -152,10 +162,10 @@ weft_err weft_snapshot_open(weft_store *s, uint64_t version, weft_snapshot **out
     const json_t *desc;
     json_object_foreach((json_t *)blobs, name, desc) {
         struct named_blob *nb = &snap->blobs[snap->n_blobs];
-        if ((e = load_blob(snap, s, name, desc, &nb->blob, err)) != WEFT_OK)
-            goto done;
         nb->name = name;
-        snap->n_blobs++;
+        snap->n_blobs++;   /* counted first, so that a failed load frees its copy */
+        if ((e = load_blob(snap, s, name, desc, &nb->blob, &nb->copy, err)) != WEFT_OK)
+            goto done;
     }
 done:
     if (e != WEFT_OK) {
@@ -178,6 +188,8 @@ void weft_snapshot_release(weft_snapshot *snap)
         return;
     if (snap->txn)
         mdb_txn_abort(snap->txn);   /* env opened MDB_NOTLS: any thread may end it */
+    for (size_t i = 0; i < snap->n_blobs; i++)
+        free(snap->blobs[i].copy);
     json_decref(snap->manifest);
     free(snap->blobs);
     free(snap);

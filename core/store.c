@@ -92,7 +92,8 @@ static weft_err open_dbis(weft_store *s, weft_error *err)
                                   s->dir);
         return weft_store_mdb_error(rc, "open databases", err);
     }
-    rc = s->is_readonly ? (mdb_txn_abort(txn), 0) : mdb_txn_commit(txn);
+    /* Commit even when read-only: handles opened in an aborted transaction are closed. */
+    rc = mdb_txn_commit(txn);
     if (rc)
         return weft_store_mdb_error(rc, "create databases", err);
     return WEFT_OK;

@@ -68,6 +68,7 @@ static bool parse_listen(const char *given, http_settings *cfg)
     if (!cmd_parse_u64(SUB, "--listen port", colon + 1, 1, 65535, &port))
         return false;
     memset(&cfg->addr, 0, sizeof cfg->addr);
+    cfg->port = (uint16_t)port;
     int ok;
     if (cfg->is_ipv6) {
         struct sockaddr_in6 *a6 = (struct sockaddr_in6 *)&cfg->addr;
@@ -189,8 +190,8 @@ int cmd_serve_main(int argc, char **argv)
         http_live_stop(live);
         return cmd_report_error(&err);
     }
-    http_log("listening on http://%s (%u threads, store %s)", cfg.listen, cfg.n_threads,
-             cfg.store_dir);
+    http_log("listening on http://%s (request threads: %u, store: %s)", cfg.listen,
+             cfg.n_threads, cfg.store_dir);
 
     int sig = wait_for_stop(&stop_signals);
     http_log("%s: finishing open requests", sig == SIGINT ? "SIGINT" : "SIGTERM");

@@ -37,6 +37,7 @@ typedef struct http_settings {
     const char *store_dir;           /**< borrowed from argv */
     struct sockaddr_storage addr;    /**< the address to bind, IPv4 or IPv6 */
     socklen_t addr_len;
+    uint16_t port;                   /**< the port in addr, host order */
     bool is_ipv6;
     char listen[80];                 /**< the address as given, for messages */
     unsigned n_threads;              /**< request threads */
@@ -119,9 +120,6 @@ void http_error_reply(http_reply *r, http_fault fault, const char *hint, const c
 
 /** Same, for a weft error: its code picks the fault, its message is the message. */
 void http_error_from(http_reply *r, const weft_error *err, const char *hint);
-
-/** The status of @p fault (for tests and logs). */
-unsigned http_error_status(http_fault fault);
 
 /* ---- requests and routes (http_route.c) ---- */
 

@@ -161,16 +161,22 @@ weft_err http_daemon_start(const http_settings *cfg, http_live *live, http_daemo
     d->live = live;
     atomic_init(&d->is_draining, false);
     /* epoll with a pool of threads, each running its own event loop; ITC makes
-     * MHD_quiesce_daemon possible, which the draining stop needs. */
+     * MHD_quiesce_daemon possible, which the draining stop needs. One thread means no pool
+     * (libmicrohttpd warns about a pool of one). */
     unsigned flags = MHD_USE_INTERNAL_POLLING_THREAD | MHD_USE_EPOLL | MHD_USE_ITC
                      | MHD_USE_ERROR_LOG | (cfg->is_ipv6 ? MHD_USE_IPv6 : 0);
-    d->mhd = MHD_start_daemon(flags, 0, NULL, NULL, on_request, d,
+    struct MHD_OptionItem options[] = {
+        { MHD_OPTION_SOCK_ADDR, 0, (void *)&cfg->addr },
+        { MHD_OPTION_CONNECTION_TIMEOUT, HTTP_TIMEOUT_SECONDS, NULL },
+        { MHD_OPTION_CONNECTION_LIMIT, HTTP_MAX_CONNECTIONS, NULL },
+        /* last: with one thread it becomes the end of the list */
+        { cfg->n_threads > 1 ? MHD_OPTION_THREAD_POOL_SIZE : MHD_OPTION_END,
+          (intptr_t)cfg->n_threads, NULL },
+        { MHD_OPTION_END, 0, NULL },
+    };
+    d->mhd = MHD_start_daemon(flags, cfg->port, NULL, NULL, on_request, d,
                               MHD_OPTION_EXTERNAL_LOGGER, log_mhd, NULL, /* first, or it warns */
-                              MHD_OPTION_SOCK_ADDR, (const struct sockaddr *)&cfg->addr,
-                              MHD_OPTION_THREAD_POOL_SIZE, (unsigned int)cfg->n_threads,
-                              MHD_OPTION_CONNECTION_TIMEOUT, (unsigned int)HTTP_TIMEOUT_SECONDS,
-                              MHD_OPTION_CONNECTION_LIMIT, (unsigned int)HTTP_MAX_CONNECTIONS,
-                              MHD_OPTION_END);
+                              MHD_OPTION_ARRAY, options, MHD_OPTION_END);
     if (!d->mhd) {
         free(d);
         return weft_error_set(err, WEFT_ERR_IO, "cannot serve on %s (see the message above)",

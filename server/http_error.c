@@ -16,7 +16,7 @@ static const struct fault_row {
     const char *hint;
 } fault_table[] = {
     [HTTP_FAULT_BAD_REQUEST] = { MHD_HTTP_BAD_REQUEST, "bad_request",
-                                 "check the query arguments against openapi/openapi.yaml" },
+                                 "the message names the argument at fault" },
     [HTTP_FAULT_NOT_FOUND] = { MHD_HTTP_NOT_FOUND, "not_found",
                                "names are case-sensitive and must match the training data" },
     [HTTP_FAULT_METHOD] = { MHD_HTTP_METHOD_NOT_ALLOWED, "method_not_allowed",
@@ -45,11 +45,6 @@ static http_fault fault_of(weft_err code)
     case WEFT_ERR_STORE: return HTTP_FAULT_INTERNAL;
     }
     return HTTP_FAULT_INTERNAL;
-}
-
-unsigned http_error_status(http_fault fault)
-{
-    return fault_table[fault].status;
 }
 
 /* A JSON string of @p s, cutting at most a few bytes off the end when a truncated message

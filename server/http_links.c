@@ -7,6 +7,7 @@
 
 #include "weft/alloc.h"
 #include "weft/graph.h"
+#include "weft/model.h"
 #include "weft/names.h"
 #include "weft/topk.h"
 
@@ -20,15 +21,6 @@ struct predict_query {
     uint32_t relation;
     size_t k;
 };
-
-/* 1 / (1 + e^-x) without overflow for large |x|. */
-static double logistic(double x)
-{
-    if (x >= 0)
-        return 1.0 / (1.0 + exp(-x));
-    double e = exp(x);
-    return e / (1.0 + e);
-}
 
 /* "this model's relations: a, b, c" (or only their count when they do not fit). */
 static void relation_hint(const weft_link_view *v, char *buf, size_t size)
@@ -93,7 +85,7 @@ static json_t *prediction_json(const weft_link_view *v, uint32_t target, float s
     bad |= json_object_set_new(p, "target", json_stringn(name, len)) != 0;
     bad |= json_object_set_new(p, "score", is_finite ? json_real(score) : json_null()) != 0;
     if (v->is_probability)
-        bad |= json_object_set_new(p, "probability", is_finite ? json_real(logistic(score))
+        bad |= json_object_set_new(p, "probability", is_finite ? json_real(weft_model_sigmoid(score))
                                                                : json_null()) != 0;
     if (bad) {
         json_decref(p);
@@ -116,14 +108,24 @@ static json_t *predictions_json(const weft_link_view *v, const uint32_t *id, con
 }
 
 /* Best q.k targets of q.source, leaving out links already known and, unless the graph has
- * self-loops, the source itself. Dot model: score(s, t) = e_s . e_t, so the query vector is
- * the source's own row. */
+ * self-loops, the source itself. Every link model scores a target t as query . e_t
+ * (include/weft/model.h); @p query (dim) is the workspace for the query vector. */
 static weft_err score_targets(const weft_link_view *v, const struct predict_query *q,
-                              uint32_t *id, float *score, size_t *n, weft_error *err)
+                              float *query, uint32_t *id, float *score, size_t *n,
+                              weft_error *err)
 {
-    if (v->kind != WEFT_LINK_DOT)
+    if (!weft_model_kind_name(v->kind))
         return weft_error_set(err, WEFT_ERR_CORRUPT, "link model kind %d is not served",
                               (int)v->kind);
+    const weft_link_model model = {
+        .kind = v->kind,
+        .n_entities = v->n_nodes,
+        .n_relations = v->n_relations,
+        .dim = v->dim,
+        .entity = v->entity,
+        .relation = NULL,
+    };
+    weft_model_query(&model, q->source, q->relation, false, query);
     uint64_t first = 0;
     size_t n_known = 0;
     weft_csr_range(&v->known_out, q->source, q->relation, &first, &n_known);
@@ -133,7 +135,6 @@ static weft_err score_targets(const weft_link_view *v, const struct predict_quer
         .has_self = !v->has_self_loops,
         .self = q->source,
     };
-    const float *query = v->entity + (size_t)q->source * v->dim;
     *n = weft_topk_scan(v->entity, v->n_nodes, v->dim, query, q->k, &ex, id, score);
     return WEFT_OK;
 }
@@ -193,11 +194,12 @@ void http_links_predict(const http_request *rq, http_reply *out)
     }
     uint32_t *id = weft_alloc_array(q.k, sizeof *id);
     float *score = weft_alloc_array(q.k, sizeof *score);
+    float *query = weft_alloc_array(v->dim, sizeof *query);
     size_t n = 0;
-    if (!id || !score)
+    if (!id || !score || !query)
         weft_error_set(&err, WEFT_ERR_NOMEM, "no memory for %zu predictions", q.k);
     else
-        score_targets(v, &q, id, score, &n, &err);
+        score_targets(v, &q, query, id, score, &n, &err);
     if (err.code == WEFT_OK) {
         out->status = MHD_HTTP_OK;
         out->body = response_json(v, &q, id, score, n);
@@ -206,4 +208,5 @@ void http_links_predict(const http_request *rq, http_reply *out)
     }
     free(id);
     free(score);
+    free(query);
 }

@@ -1,5 +1,7 @@
 /* weft: a stored snapshot opened for reading. Blobs are read in place from the LMDB map
- * (zero copy) through one read-only transaction that lives as long as the snapshot. */
+ * (zero copy) through one read-only transaction that lives as long as the snapshot; only
+ * values small enough to share a page (under about 2 KB, which LMDB stores unaligned) are
+ * copied once at open, so that every typed read is aligned. */
 #ifndef WEFT_SNAPSHOT_H
 #define WEFT_SNAPSHOT_H
 

@@ -93,10 +93,11 @@ check "predict: k defaults to 10" [ "$(curl -sS "$BASE/v1/links/predict?source=m
     /usr/bin/python3 -c 'import json,sys; d=json.load(sys.stdin); print(d["k"] == 10 and len(d["predictions"]) == 10)')" = True ]
 
 # For every node, ask for all 34: the answer must hold exactly the nodes that are neither the
-# node itself nor a neighbour in the edges file, best first.
+# node itself nor a neighbour in the edges file, best first, each with the logistic of its
+# score as its probability.
 check "predict: every node, k=34: no self, no known neighbour, all others" \
     /usr/bin/python3 - "$BASE" "$EDGES" <<'EOF'
-import json, sys, urllib.request
+import json, math, sys, urllib.request
 base, edges = sys.argv[1], sys.argv[2]
 nbr = {}
 for line in open(edges):
@@ -114,6 +115,10 @@ for s in sorted(nodes):
     got = [p["target"] for p in d["predictions"]]
     want = nodes - nbr[s] - {s}
     scores = [p["score"] for p in d["predictions"]]
+    probs = [p["probability"] for p in d["predictions"]]
+    if any(abs(p - 1 / (1 + math.exp(-x))) > 1e-6 for p, x in zip(probs, scores)):
+        print(f"{s}: a probability is not the logistic of its score")
+        bad += 1
     if set(got) != want or len(got) != len(want) or scores != sorted(scores, reverse=True):
         print(f"{s}: got {len(got)} targets, want {len(want)}; "
               f"wrongly in: {sorted(set(got) - want)}; missing: {sorted(want - set(got))}")

@@ -1,8 +1,9 @@
 #!/bin/sh
-# The store read with lmdb-utils, outside weft: the named databases exist; the blobs stored
-# for the live version are exactly those its manifest lists (from the catalog and from
-# GET /v1/model), with the listed sizes and CRC-32s; and the server's predictions match
-# scores computed here from the stored embedding matrix and the edges file.
+# The store read and written with lmdb-utils, outside weft: the named databases exist; the
+# blobs stored for the live version are exactly those its manifest lists (from the catalog
+# and from GET /v1/model), with the listed sizes and CRC-32s; the server's predictions match
+# scores computed here from the stored embedding matrix and the edges file; and a version
+# whose data was changed behind weft's back is refused while the previous one keeps serving.
 set -u
 . "$TOP/tests/e2e/lib.sh"
 
@@ -138,5 +139,48 @@ for src in ("m0", "m33", "m16"):
         bad += 1
 sys.exit(1 if bad else 0)
 EOF
+
+# ---- a damaged version is refused; the live one keeps serving ----
+# Version 2 is trained and promoted, then one byte of its embedding matrix is flipped and the
+# head set back to 1 with mdb_load (which overwrites the keys it is given). The server,
+# started on version 1, is then pointed at version 2 through the head.
+
+# put_head VERSION: head "live" -> VERSION (u64 big-endian).
+put_head() {
+    printf 'VERSION=3\nformat=bytevalue\ntype=btree\nHEADER=END\n 6c697665\n %016x\nDATA=END\n' \
+        "$1" | mdb_load -s head "$STORE"
+}
+
+cat >"$E2E_TMP/damage.py" <<'EOF'
+import sys
+sys.path.insert(0, sys.argv[1])
+from dump import pairs
+key = (2).to_bytes(8, "big") + b"entity"
+value = bytearray(dict(pairs(sys.argv[1] + "/blobs2.dump"))[key])
+value[48 + 100] ^= 0x01
+print("VERSION=3\nformat=bytevalue\ntype=btree\nHEADER=END")
+print(" " + key.hex())
+print(" " + value.hex())
+print("DATA=END")
+EOF
+
+stop_server
+check "weft train (version 2)" sh -c '"$1" train --quiet --store "$2" --edges "$3" --model dot \
+    --undirected --seed 2 >>"$4/train.log" 2>&1' sh "$WEFT" "$STORE" "$EDGES" "$E2E_TMP"
+mdb_dump -s blobs "$STORE" >"$E2E_TMP/blobs2.dump"
+/usr/bin/python3 "$E2E_TMP/damage.py" "$E2E_TMP" >"$E2E_TMP/damage.dump"
+check "flip one byte of version 2's stored embeddings (mdb_load)" \
+    mdb_load -s blobs "$STORE" <"$E2E_TMP/damage.dump"
+check "set the head back to version 1 (mdb_load)" put_head 1
+start_server "$STORE" || finish
+check "the server starts on version 1" \
+    [ "$(curl -sS "$BASE/healthz")" = '{"version":1,"status":"ok"}' ]
+check "point the head at the damaged version 2 (mdb_load)" put_head 2
+sleep 1
+check "version 1 is still served after the damaged version 2 went live" \
+    [ "$(curl -sS "$BASE/healthz")" = '{"version":1,"status":"ok"}' ]
+check "predictions still come from version 1" sh -c '
+    curl -sS "$1/v1/links/predict?source=m0&k=3" | grep -q "^{\"version\":1,"' sh "$BASE"
+check "the log names the refused version" grep -q "version 2 not served" "$E2E_TMP/server.log"
 
 finish

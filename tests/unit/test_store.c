@@ -223,3 +223,23 @@ Test(store, readonly_open_of_an_empty_directory_says_so)
     cr_assert_eq(weft_store_open(dir, WEFT_STORE_READONLY, 0, &s, &err), WEFT_ERR_NOT_FOUND);
     cr_assert(strstr(err.msg, dir), "message: %s", err.msg);
 }
+
+Test(store, readonly_open_reads_what_a_writer_stored)
+{
+    weft_store *s = NULL;
+    weft_error err;
+    cr_assert_eq(weft_store_open(dir, WEFT_STORE_CREATE, 1 << 26, &s, &err), WEFT_OK);
+    fill_matrix(3.0f);
+    write_snapshot(s, true, "one");
+    weft_store_close(s);
+    cr_assert_eq(weft_store_open(dir, WEFT_STORE_READONLY, 1 << 26, &s, &err), WEFT_OK, "%s",
+                 err.msg);
+    uint64_t live = 0;
+    cr_assert_eq(weft_store_head(s, &live, NULL, &err), WEFT_OK, "%s", err.msg);
+    cr_assert_eq(live, 1);
+    weft_snapshot *snap = NULL;
+    cr_assert_eq(weft_snapshot_open(s, 1, &snap, &err), WEFT_OK, "%s", err.msg);
+    weft_snapshot_release(snap);
+    cr_assert_eq(weft_store_promote(s, 1, &err), WEFT_ERR_INVALID, "read-only refuses writes");
+    weft_store_close(s);
+}
