@@ -63,7 +63,9 @@ demo: deps
 bench: all
 	BUILD=$(BUILD) bench/run.sh
 
+# UBSan findings stop the process, so they fail the test that met them.
 check-asan:
+	UBSAN_OPTIONS=halt_on_error=1:print_stacktrace=1 ASAN_OPTIONS=detect_leaks=1 \
 	$(MAKE) BUILD=build-asan OPT="-O1 -g -fno-omit-frame-pointer -fsanitize=address,undefined" \
 	    LDFLAGS="-fsanitize=address,undefined" test
 
