@@ -227,21 +227,26 @@ static weft_err need_blob(const weft_snapshot *snap, const char *name, weft_dtyp
     return WEFT_OK;
 }
 
+/* need_blob() for the blob named "<prefix>.<part>". */
+static weft_err need_part(const weft_snapshot *snap, const char *prefix, const char *part,
+                          weft_dtype dtype, weft_blob *out, weft_error *err)
+{
+    char name[WEFT_BLOB_MAX_NAME + 1];
+    snprintf(name, sizeof name, "%s.%s", prefix, part);
+    return need_blob(snap, name, dtype, 1, out, err);
+}
+
 static weft_err names_view(const weft_snapshot *snap, const char *prefix, weft_names_view *out,
                            weft_error *err)
 {
-    char n_off[WEFT_BLOB_MAX_NAME], n_bytes[WEFT_BLOB_MAX_NAME], n_slots[WEFT_BLOB_MAX_NAME];
-    snprintf(n_off, sizeof n_off, "%s.off", prefix);
-    snprintf(n_bytes, sizeof n_bytes, "%s.bytes", prefix);
-    snprintf(n_slots, sizeof n_slots, "%s.slots", prefix);
     weft_blob off, bytes, slots;
     weft_err e;
-    if ((e = need_blob(snap, n_off, WEFT_DTYPE_U64, 1, &off, err)) ||
-        (e = need_blob(snap, n_bytes, WEFT_DTYPE_U8, 1, &bytes, err)) ||
-        (e = need_blob(snap, n_slots, WEFT_DTYPE_U32, 1, &slots, err)))
+    if ((e = need_part(snap, prefix, "off", WEFT_DTYPE_U64, &off, err)) ||
+        (e = need_part(snap, prefix, "bytes", WEFT_DTYPE_U8, &bytes, err)) ||
+        (e = need_part(snap, prefix, "slots", WEFT_DTYPE_U32, &slots, err)))
         return e;
     if (off.shape[0] == 0)
-        return fail_blob(err, snap->version, n_off, "empty offset table");
+        return fail_blob(err, snap->version, prefix, "empty name table offsets");
     weft_names_view v = { .n = off.shape[0] - 1, .cap = slots.shape[0], .off = off.data,
                           .bytes = bytes.data, .slots = slots.data, .n_bytes = bytes.shape[0] };
     if ((e = weft_names_check(&v, err)) != WEFT_OK)
@@ -253,27 +258,23 @@ static weft_err names_view(const weft_snapshot *snap, const char *prefix, weft_n
 static weft_err csr_view(const weft_snapshot *snap, const char *prefix, size_t n_rows,
                          size_t n_cols, size_t n_rel, weft_csr *out, weft_error *err)
 {
-    char n_off[WEFT_BLOB_MAX_NAME], n_rel_[WEFT_BLOB_MAX_NAME], n_nbr[WEFT_BLOB_MAX_NAME];
-    snprintf(n_off, sizeof n_off, "%s.off", prefix);
-    snprintf(n_rel_, sizeof n_rel_, "%s.rel", prefix);
-    snprintf(n_nbr, sizeof n_nbr, "%s.nbr", prefix);
     weft_blob off, rel, nbr;
     weft_err e;
-    if ((e = need_blob(snap, n_off, WEFT_DTYPE_U64, 1, &off, err)) ||
-        (e = need_blob(snap, n_rel_, WEFT_DTYPE_U32, 1, &rel, err)) ||
-        (e = need_blob(snap, n_nbr, WEFT_DTYPE_U32, 1, &nbr, err)))
+    if ((e = need_part(snap, prefix, "off", WEFT_DTYPE_U64, &off, err)) ||
+        (e = need_part(snap, prefix, "rel", WEFT_DTYPE_U32, &rel, err)) ||
+        (e = need_part(snap, prefix, "nbr", WEFT_DTYPE_U32, &nbr, err)))
         return e;
     const uint64_t *o = off.data;
     const uint32_t *r = rel.data, *u = nbr.data;
     if (off.shape[0] != n_rows + 1 || rel.shape[0] != nbr.shape[0] || o[0] != 0 ||
         o[n_rows] != nbr.shape[0])
-        return fail_blob(err, snap->version, n_off, "offsets disagree with the node table");
+        return fail_blob(err, snap->version, prefix, "offsets disagree with the node table");
     for (size_t i = 0; i < n_rows; i++)
         if (o[i] > o[i + 1])
-            return fail_blob(err, snap->version, n_off, "offsets not rising");
+            return fail_blob(err, snap->version, prefix, "offsets not rising");
     for (size_t j = 0; j < nbr.shape[0]; j++)
         if (r[j] >= n_rel || u[j] >= n_cols)
-            return fail_blob(err, snap->version, n_nbr, "id out of range");
+            return fail_blob(err, snap->version, prefix, "id out of range");
     /* The CSR struct is shared with the builder, whose arrays are writable; these point into
      * the read-only map and are never written through (snapshot.h says so). */
     out->n_rows = n_rows;
@@ -320,37 +321,35 @@ weft_err weft_snapshot_link_view(const weft_snapshot *snap, weft_link_view *out,
     return WEFT_OK;
 }
 
+/* weft_store_writer_put() of a 1-dimensional blob named "<prefix>.<part>". */
+static weft_err put_part(weft_store_writer *w, const char *prefix, const char *part,
+                         weft_dtype dtype, size_t n, const void *data, weft_error *err)
+{
+    char name[WEFT_BLOB_MAX_NAME + 1];
+    snprintf(name, sizeof name, "%s.%s", prefix, part);
+    return weft_store_writer_put(w, name, dtype, 1, &n, data, err);
+}
+
 static weft_err put_names(weft_store_writer *w, const char *prefix, const weft_names *t,
                           weft_error *err)
 {
     weft_names_view v = weft_names_as_view(t);
-    char name[WEFT_BLOB_MAX_NAME];
-    size_t n_off = v.n + 1, n_bytes = v.n_bytes, cap = v.cap;
     weft_err e;
-    snprintf(name, sizeof name, "%s.off", prefix);
-    if ((e = weft_store_writer_put(w, name, WEFT_DTYPE_U64, 1, &n_off, v.off, err)))
+    if ((e = put_part(w, prefix, "off", WEFT_DTYPE_U64, v.n + 1, v.off, err)) ||
+        (e = put_part(w, prefix, "bytes", WEFT_DTYPE_U8, v.n_bytes, v.bytes, err)))
         return e;
-    snprintf(name, sizeof name, "%s.bytes", prefix);
-    if ((e = weft_store_writer_put(w, name, WEFT_DTYPE_U8, 1, &n_bytes, v.bytes, err)))
-        return e;
-    snprintf(name, sizeof name, "%s.slots", prefix);
-    return weft_store_writer_put(w, name, WEFT_DTYPE_U32, 1, &cap, v.slots, err);
+    return put_part(w, prefix, "slots", WEFT_DTYPE_U32, v.cap, v.slots, err);
 }
 
 static weft_err put_csr(weft_store_writer *w, const char *prefix, const weft_csr *c,
                         weft_error *err)
 {
-    char name[WEFT_BLOB_MAX_NAME];
-    size_t n_off = c->n_rows + 1, n_nnz = (size_t)c->off[c->n_rows];
+    size_t nnz = (size_t)c->off[c->n_rows];
     weft_err e;
-    snprintf(name, sizeof name, "%s.off", prefix);
-    if ((e = weft_store_writer_put(w, name, WEFT_DTYPE_U64, 1, &n_off, c->off, err)))
+    if ((e = put_part(w, prefix, "off", WEFT_DTYPE_U64, c->n_rows + 1, c->off, err)) ||
+        (e = put_part(w, prefix, "rel", WEFT_DTYPE_U32, nnz, c->rel, err)))
         return e;
-    snprintf(name, sizeof name, "%s.rel", prefix);
-    if ((e = weft_store_writer_put(w, name, WEFT_DTYPE_U32, 1, &n_nnz, c->rel, err)))
-        return e;
-    snprintf(name, sizeof name, "%s.nbr", prefix);
-    return weft_store_writer_put(w, name, WEFT_DTYPE_U32, 1, &n_nnz, c->nbr, err);
+    return put_part(w, prefix, "nbr", WEFT_DTYPE_U32, nnz, c->nbr, err);
 }
 
 weft_err weft_snapshot_put_link(weft_store_writer *w, json_t *manifest, const weft_graph *g,

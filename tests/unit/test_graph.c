@@ -8,53 +8,13 @@
 #include <unistd.h>
 #include <zlib.h>
 
+#include "fixture.h"
 #include "weft/graph.h"
 #include "weft/io.h"
 #include "weft/rng.h"
 
-static char tmpdir[64];
+TestSuite(graph, .init = fixture_dir_create, .fini = fixture_dir_remove);
 
-static void tmp_setup(void)
-{
-    strcpy(tmpdir, "/tmp/weft-test-graph-XXXXXX");
-    cr_assert_not_null(mkdtemp(tmpdir), "mkdtemp failed");
-}
-
-static void tmp_teardown(void)
-{
-    DIR *d = opendir(tmpdir);
-    if (!d)
-        return;
-    struct dirent *ent;
-    char path[512];
-    while ((ent = readdir(d)) != NULL) {
-        if (!strcmp(ent->d_name, ".") || !strcmp(ent->d_name, ".."))
-            continue;
-        snprintf(path, sizeof path, "%s/%s", tmpdir, ent->d_name);
-        unlink(path);
-    }
-    closedir(d);
-    rmdir(tmpdir);
-}
-
-TestSuite(graph, .init = tmp_setup, .fini = tmp_teardown);
-
-/* Writes @p len bytes to file @p name in the test's directory; returns its path (static). */
-static const char *write_file(const char *name, const void *data, size_t len)
-{
-    static char path[512];
-    snprintf(path, sizeof path, "%s/%s", tmpdir, name);
-    FILE *f = fopen(path, "wb");
-    cr_assert_not_null(f);
-    cr_assert_eq(fwrite(data, 1, len, f), len);
-    cr_assert_eq(fclose(f), 0);
-    return path;
-}
-
-static const char *write_text(const char *name, const char *text)
-{
-    return write_file(name, text, strlen(text));
-}
 
 static weft_graph *new_graph(unsigned flags)
 {
@@ -100,7 +60,7 @@ static bool has_node(const weft_graph *g, const char *name)
 Test(graph, loads_two_column_file_with_default_relation)
 {
     weft_graph *g = new_graph(0);
-    load(g, write_text("e.tsv", "# people\nann\tbob\nbob\tcid\n"));
+    load(g, fixture_write_text("e.tsv", "# people\nann\tbob\nbob\tcid\n"));
     cr_assert_eq(g->nodes.n, 3);
     cr_assert_eq(g->relations.n, 1);
     weft_names_view rv = weft_names_as_view(&g->relations);
@@ -116,10 +76,10 @@ Test(graph, loads_two_column_file_with_default_relation)
 Test(graph, loads_three_column_csv_and_gzip)
 {
     weft_graph *g = new_graph(0);
-    load(g, write_text("k.csv", "\"Smith, J\",wrote,paper1\r\nann,cites,\"Smith, J\"\r\n"));
+    load(g, fixture_write_text("k.csv", "\"Smith, J\",wrote,paper1\r\nann,cites,\"Smith, J\"\r\n"));
     const char *text = "paper1\tcites\tpaper2\n";
     static char gz_path[512];
-    snprintf(gz_path, sizeof gz_path, "%s/more.tsv.gz", tmpdir);
+    snprintf(gz_path, sizeof gz_path, "%s/more.tsv.gz", fixture_dir);
     gzFile gz = gzopen(gz_path, "wb");
     cr_assert_not_null(gz);
     cr_assert_eq(gzwrite(gz, text, (unsigned)strlen(text)), (int)strlen(text));
@@ -147,7 +107,7 @@ static graph_state state_of(const weft_graph *g)
 static weft_graph *graph_with_base(void)
 {
     weft_graph *g = new_graph(0);
-    load(g, write_text("base.tsv", "a\tb\nb\tc\n"));
+    load(g, fixture_write_text("base.tsv", "a\tb\nb\tc\n"));
     return g;
 }
 
@@ -162,7 +122,7 @@ static void expect_load_fails(const char *name, const void *content, size_t len,
     weft_graph *g = graph_with_base();
     graph_state before = state_of(g);
     char path[512], want[600];
-    strcpy(path, write_file(name, content, len));
+    strcpy(path, fixture_write(name, content, len));
     snprintf(want, sizeof want, "%s%s", path, suffix);
     weft_error err = { WEFT_OK, "" };
     cr_assert_eq(weft_graph_load_edges(g, path, &err), code, "got %s: %s",
@@ -233,7 +193,7 @@ Test(graph, unreadable_file_is_io_error)
     weft_graph *g = graph_with_base();
     graph_state before = state_of(g);
     char path[512], want[600];
-    snprintf(path, sizeof path, "%s/absent.tsv", tmpdir);
+    snprintf(path, sizeof path, "%s/absent.tsv", fixture_dir);
     snprintf(want, sizeof want, "%s: No such file or directory", path);
     weft_error err = { WEFT_OK, "" };
     cr_assert_eq(weft_graph_load_edges(g, path, &err), WEFT_ERR_IO);
@@ -256,7 +216,7 @@ Test(graph, truncated_gzip_fails_whole_file)
                                  (unsigned long long)weft_rng_next(&rng),
                                  (unsigned long long)weft_rng_next(&rng));
     char path[512];
-    snprintf(path, sizeof path, "%s/cut.tsv.gz", tmpdir);
+    snprintf(path, sizeof path, "%s/cut.tsv.gz", fixture_dir);
     gzFile gz = gzopen(path, "wb");
     cr_assert_not_null(gz);
     cr_assert_eq(gzwrite(gz, text, (unsigned)used), (int)used);
@@ -281,7 +241,7 @@ Test(graph, truncated_gzip_fails_whole_file)
 Test(graph, empty_graph_cannot_be_finalized)
 {
     weft_graph *g = new_graph(0);
-    load(g, write_text("c.tsv", "# only a comment\n\n"));
+    load(g, fixture_write_text("c.tsv", "# only a comment\n\n"));
     weft_error err = { WEFT_OK, "" };
     cr_assert_eq(weft_graph_finalize(g, &err), WEFT_ERR_INVALID);
     cr_assert_str_eq(err.msg, "empty graph: no edges");
@@ -296,7 +256,7 @@ Test(graph, final_graph_refuses_changes)
     weft_error err = { WEFT_OK, "" };
     cr_assert_eq(weft_graph_finalize(g, &err), WEFT_ERR_INVALID);
     cr_assert_eq(weft_graph_add_edge(g, "x", 1, "r", 1, "y", 1, &err), WEFT_ERR_INVALID);
-    cr_assert_eq(weft_graph_load_edges(g, write_text("m.tsv", "x\ty\n"), &err), WEFT_ERR_INVALID);
+    cr_assert_eq(weft_graph_load_edges(g, fixture_write_text("m.tsv", "x\ty\n"), &err), WEFT_ERR_INVALID);
     cr_assert_eq(g->nodes.n, 3);
     weft_graph_free(g);
 }

@@ -7,62 +7,16 @@
 #include <unistd.h>
 #include <zlib.h>
 
+#include "fixture.h"
 #include "weft/io.h"
 #include "weft/rng.h"
 
-static char tmpdir[64];
+TestSuite(io, .init = fixture_dir_create, .fini = fixture_dir_remove);
 
-static void tmp_setup(void)
-{
-    strcpy(tmpdir, "/tmp/weft-test-io-XXXXXX");
-    cr_assert_not_null(mkdtemp(tmpdir), "mkdtemp failed");
-}
-
-static void tmp_teardown(void)
-{
-    DIR *d = opendir(tmpdir);
-    if (!d)
-        return;
-    struct dirent *ent;
-    char path[512];
-    while ((ent = readdir(d)) != NULL) {
-        if (!strcmp(ent->d_name, ".") || !strcmp(ent->d_name, ".."))
-            continue;
-        snprintf(path, sizeof path, "%s/%s", tmpdir, ent->d_name);
-        unlink(path);
-    }
-    closedir(d);
-    rmdir(tmpdir);
-}
-
-TestSuite(io, .init = tmp_setup, .fini = tmp_teardown);
-
-/* Path of @p name inside the test's directory, in a static buffer (one at a time). */
-static const char *tmp_path(const char *name)
-{
-    static char path[512];
-    snprintf(path, sizeof path, "%s/%s", tmpdir, name);
-    return path;
-}
-
-static const char *write_file(const char *name, const void *data, size_t len)
-{
-    const char *path = tmp_path(name);
-    FILE *f = fopen(path, "wb");
-    cr_assert_not_null(f);
-    cr_assert_eq(fwrite(data, 1, len, f), len);
-    cr_assert_eq(fclose(f), 0);
-    return path;
-}
-
-static const char *write_text(const char *name, const char *text)
-{
-    return write_file(name, text, strlen(text));
-}
 
 static const char *write_gz(const char *name, const void *data, size_t len)
 {
-    const char *path = tmp_path(name);
+    const char *path = fixture_path(name);
     gzFile gz = gzopen(path, "wb");
     cr_assert_not_null(gz);
     cr_assert_eq(gzwrite(gz, data, (unsigned)len), (int)len);
@@ -134,30 +88,30 @@ static weft_io_format format_of(const char *path)
 
 Test(io, reads_tsv_fields)
 {
-    expect_slurp(write_text("a.tsv", "a\tb\tc\nd\te\n"), "1:a|b|c\n2:d|e\n");
+    expect_slurp(fixture_write_text("a.tsv", "a\tb\tc\nd\te\n"), "1:a|b|c\n2:d|e\n");
 }
 
 Test(io, csv_quotes_and_escapes)
 {
-    const char *p = write_text("q.csv", "plain,\"a,b\",\"say \"\"hi\"\"\",\"\"\nx,y,\n");
+    const char *p = fixture_write_text("q.csv", "plain,\"a,b\",\"say \"\"hi\"\"\",\"\"\nx,y,\n");
     expect_slurp(p, "1:plain|a,b|say \"hi\"|\n2:x|y|\n");
     cr_assert_eq(format_of(p), WEFT_IO_CSV);
 }
 
 Test(io, csv_quote_inside_unquoted_field_is_literal)
 {
-    expect_slurp(write_text("lit.csv", "O\"Brien,x\n"), "1:O\"Brien|x\n");
+    expect_slurp(fixture_write_text("lit.csv", "O\"Brien,x\n"), "1:O\"Brien|x\n");
 }
 
 Test(io, csv_unbalanced_quote_fails)
 {
-    expect_failure(write_text("open.csv", "a,b\nc,\"open\n"), WEFT_ERR_PARSE,
+    expect_failure(fixture_write_text("open.csv", "a,b\nc,\"open\n"), WEFT_ERR_PARSE,
                    ":2: field 2: unbalanced quote");
 }
 
 Test(io, csv_text_after_closing_quote_fails)
 {
-    expect_failure(write_text("after.csv", "\"a\"b,c\n"), WEFT_ERR_PARSE,
+    expect_failure(fixture_write_text("after.csv", "\"a\"b,c\n"), WEFT_ERR_PARSE,
                    ":1: field 1: text after the closing quote");
 }
 
@@ -250,19 +204,19 @@ Test(io, corrupt_gzip_is_io_error)
 
 Test(io, comments_and_blank_lines_keep_line_numbers)
 {
-    expect_slurp(write_text("c.tsv", "# header\n\na\tb\n   \n  # indented\n\t\nc\td\n"),
+    expect_slurp(fixture_write_text("c.tsv", "# header\n\na\tb\n   \n  # indented\n\t\nc\td\n"),
                  "3:a|b\n7:c|d\n");
 }
 
 Test(io, crlf_is_stripped)
 {
-    expect_slurp(write_text("w.tsv", "a\tb\r\nc\td\r\n"), "1:a|b\n2:c|d\n");
-    expect_slurp(write_text("w.csv", "x,\"y\"\r\n"), "1:x|y\n");
+    expect_slurp(fixture_write_text("w.tsv", "a\tb\r\nc\td\r\n"), "1:a|b\n2:c|d\n");
+    expect_slurp(fixture_write_text("w.csv", "x,\"y\"\r\n"), "1:x|y\n");
 }
 
 Test(io, last_line_without_newline)
 {
-    expect_slurp(write_text("n.tsv", "a\tb\nc\td"), "1:a|b\n2:c|d\n");
+    expect_slurp(fixture_write_text("n.tsv", "a\tb\nc\td"), "1:a|b\n2:c|d\n");
 }
 
 Test(io, long_lines_are_not_split)
@@ -294,51 +248,51 @@ Test(io, long_lines_are_not_split)
 Test(io, invalid_utf8_names_line_and_byte)
 {
     /* Byte 4 of line 2 is 0xC0, the start of an overlong encoding of NUL. */
-    expect_failure(write_text("u.tsv", "ok\tfine\nab\t\xC0\x80\n"), WEFT_ERR_PARSE,
+    expect_failure(fixture_write_text("u.tsv", "ok\tfine\nab\t\xC0\x80\n"), WEFT_ERR_PARSE,
                    ":2: invalid UTF-8 at byte 4");
 }
 
 Test(io, invalid_utf8_in_a_comment_is_rejected)
 {
-    expect_failure(write_text("uc.tsv", "# caf\xE9\na\tb\n"), WEFT_ERR_PARSE,
+    expect_failure(fixture_write_text("uc.tsv", "# caf\xE9\na\tb\n"), WEFT_ERR_PARSE,
                    ":1: invalid UTF-8 at byte 6");
 }
 
 Test(io, nul_byte_is_rejected)
 {
-    expect_failure(write_file("z.tsv", "a\tb\nc\0d\tx\n", 11), WEFT_ERR_PARSE,
+    expect_failure(fixture_write("z.tsv", "a\tb\nc\0d\tx\n", 11), WEFT_ERR_PARSE,
                    ":2: NUL byte at byte 2");
 }
 
 Test(io, unreadable_file_is_io_error)
 {
-    expect_failure(tmp_path("missing.tsv"), WEFT_ERR_IO, ": No such file or directory");
+    expect_failure(fixture_path("missing.tsv"), WEFT_ERR_IO, ": No such file or directory");
 }
 
 Test(io, directory_is_io_error)
 {
-    expect_failure(tmpdir, WEFT_ERR_IO, ": Is a directory");
+    expect_failure(fixture_dir, WEFT_ERR_IO, ": Is a directory");
 }
 
 Test(io, too_many_fields)
 {
-    expect_slurp(write_text("16.tsv", "1\t2\t3\t4\t5\t6\t7\t8\t9\t10\t11\t12\t13\t14\t15\t16\n"),
+    expect_slurp(fixture_write_text("16.tsv", "1\t2\t3\t4\t5\t6\t7\t8\t9\t10\t11\t12\t13\t14\t15\t16\n"),
                  "1:1|2|3|4|5|6|7|8|9|10|11|12|13|14|15|16\n");
-    expect_failure(write_text("17.tsv", "1\t2\t3\t4\t5\t6\t7\t8\t9\t10\t11\t12\t13\t14\t15\t16\t17\n"),
+    expect_failure(fixture_write_text("17.tsv", "1\t2\t3\t4\t5\t6\t7\t8\t9\t10\t11\t12\t13\t14\t15\t16\t17\n"),
                    WEFT_ERR_PARSE, ":1: more than 16 fields");
-    expect_failure(write_text("17.csv", "1,2,3,4,5,6,7,8,9,10,11,12,13,14,15,16,17\n"),
+    expect_failure(fixture_write_text("17.csv", "1,2,3,4,5,6,7,8,9,10,11,12,13,14,15,16,17\n"),
                    WEFT_ERR_PARSE, ":1: more than 16 fields");
 }
 
 Test(io, format_is_sniffed_without_extension)
 {
-    const char *p = write_text("commas", "# a,b\ta\nx,y\n");
+    const char *p = fixture_write_text("commas", "# a,b\ta\nx,y\n");
     cr_assert_eq(format_of(p), WEFT_IO_CSV);
     expect_slurp(p, "2:x|y\n");
-    p = write_text("tabs.txt", "x,y\tz\n");
+    p = fixture_write_text("tabs.txt", "x,y\tz\n");
     cr_assert_eq(format_of(p), WEFT_IO_TSV);
     expect_slurp(p, "1:x,y|z\n");
-    p = write_text("single", "only one\n");
+    p = fixture_write_text("single", "only one\n");
     cr_assert_eq(format_of(p), WEFT_IO_TSV);
     expect_slurp(p, "1:only one\n");
 }
@@ -445,7 +399,7 @@ Test(io, utf8_agrees_with_reference_decoder)
 
 Test(io, fail_message_shape)
 {
-    const char *p = write_text("m.tsv", "a\tb\n");
+    const char *p = fixture_write_text("m.tsv", "a\tb\n");
     weft_io_reader *r = NULL;
     cr_assert_eq(weft_io_open(p, &r, NULL), WEFT_OK);
     char want[600];
@@ -472,7 +426,7 @@ Test(io, check_name_limits)
     memset(line + used, 'b', 1025);            /* field 3: one byte over */
     used += 1025;
     line[used++] = '\n';
-    const char *p = write_file("names.tsv", line, used);
+    const char *p = fixture_write("names.tsv", line, used);
     char path[512], want[600];
     strcpy(path, p);
     weft_io_reader *r = NULL;
@@ -503,14 +457,14 @@ Test(io, sha256_known_digests)
 {
     /* Digests from FIPS 180-2, Appendix B.1 ("abc") and B.3 (a million 'a'); the empty
      * string's digest is the one `sha256sum /dev/null` prints. */
-    expect_sha256(write_text("abc", "abc"),
+    expect_sha256(fixture_write_text("abc", "abc"),
                   "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad");
-    expect_sha256(write_text("empty", ""),
+    expect_sha256(fixture_write_text("empty", ""),
                   "e3b0c44298fc1c149afbf4c8996fb92427ae41e4649b934ca495991b7852b855");
     char *many = malloc(1000000);
     cr_assert_not_null(many);
     memset(many, 'a', 1000000);
-    expect_sha256(write_file("million", many, 1000000),
+    expect_sha256(fixture_write("million", many, 1000000),
                   "cdc76e5c9914fb9281a1c7e284d73e67f1809a48a497200e046d39ccc7112cd0");
     free(many);
 }
@@ -518,7 +472,7 @@ Test(io, sha256_known_digests)
 Test(io, sha256_missing_file_is_io_error)
 {
     char hex[65], want[600];
-    const char *p = tmp_path("nope");
+    const char *p = fixture_path("nope");
     weft_error err = { WEFT_OK, "" };
     cr_assert_eq(weft_io_sha256_file(p, hex, &err), WEFT_ERR_IO);
     snprintf(want, sizeof want, "%s: No such file or directory", p);

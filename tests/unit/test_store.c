@@ -9,25 +9,11 @@
 #include <sys/wait.h>
 #include <unistd.h>
 
+#include "fixture.h"
 #include "weft/snapshot.h"
 #include "weft/store.h"
 
-static char dir[64];
-
-static void make_dir(void)
-{
-    strcpy(dir, "/tmp/weft-store-test.XXXXXX");
-    cr_assert_not_null(mkdtemp(dir));
-}
-
-static void remove_dir(void)
-{
-    char cmd[128];
-    snprintf(cmd, sizeof cmd, "rm -rf '%s'", dir);
-    cr_assert_eq(system(cmd), 0);
-}
-
-TestSuite(store, .init = make_dir, .fini = remove_dir);
+TestSuite(store, .init = fixture_dir_create, .fini = fixture_dir_remove);
 
 enum { ROWS = 300, COLS = 8 };   /* 9.6 KB: stored in overflow pages */
 
@@ -59,7 +45,7 @@ Test(store, snapshot_reads_back_in_place_and_aligned)
 {
     weft_store *s = NULL;
     weft_error err;
-    cr_assert_eq(weft_store_open(dir, WEFT_STORE_CREATE, 1 << 26, &s, &err), WEFT_OK, "%s",
+    cr_assert_eq(weft_store_open(fixture_dir, WEFT_STORE_CREATE, 1 << 26, &s, &err), WEFT_OK, "%s",
                  err.msg);
     fill_matrix(1.0f);
     cr_assert_eq(write_snapshot(s, true, "first"), 1);
@@ -90,7 +76,7 @@ Test(store, promotion_moves_head_and_retires_the_old)
 {
     weft_store *s = NULL;
     weft_error err;
-    cr_assert_eq(weft_store_open(dir, WEFT_STORE_CREATE, 1 << 26, &s, &err), WEFT_OK);
+    cr_assert_eq(weft_store_open(fixture_dir, WEFT_STORE_CREATE, 1 << 26, &s, &err), WEFT_OK);
     fill_matrix(0);
     write_snapshot(s, true, "one");
     write_snapshot(s, true, "two");
@@ -124,7 +110,7 @@ Test(store, aborted_writer_leaves_nothing)
 {
     weft_store *s = NULL;
     weft_error err;
-    cr_assert_eq(weft_store_open(dir, WEFT_STORE_CREATE, 1 << 26, &s, &err), WEFT_OK);
+    cr_assert_eq(weft_store_open(fixture_dir, WEFT_STORE_CREATE, 1 << 26, &s, &err), WEFT_OK);
     fill_matrix(0);
     write_snapshot(s, true, "one");
     weft_store_writer *w = NULL;
@@ -148,7 +134,7 @@ Test(store, crash_before_commit_keeps_head)
 {
     weft_store *s = NULL;
     weft_error err;
-    cr_assert_eq(weft_store_open(dir, WEFT_STORE_CREATE, 1 << 26, &s, &err), WEFT_OK);
+    cr_assert_eq(weft_store_open(fixture_dir, WEFT_STORE_CREATE, 1 << 26, &s, &err), WEFT_OK);
     fill_matrix(0);
     write_snapshot(s, true, "one");
     weft_store_close(s);
@@ -156,7 +142,8 @@ Test(store, crash_before_commit_keeps_head)
     if (pid == 0) {   /* the child writes most of a snapshot, then dies */
         weft_store *cs = NULL;
         weft_store_writer *w = NULL;
-        if (weft_store_open(dir, 0, 1 << 26, &cs, NULL) || weft_store_writer_open(cs, &w, NULL, NULL))
+        if (weft_store_open(fixture_dir, 0, 1 << 26, &cs, NULL) ||
+            weft_store_writer_open(cs, &w, NULL, NULL))
             _exit(3);
         size_t shape[2] = { ROWS, COLS };
         weft_store_writer_put(w, "m", WEFT_DTYPE_F32, 2, shape, matrix, NULL);
@@ -165,7 +152,7 @@ Test(store, crash_before_commit_keeps_head)
     int status = 0;
     waitpid(pid, &status, 0);
     cr_assert(WIFEXITED(status) && WEXITSTATUS(status) == 0);
-    cr_assert_eq(weft_store_open(dir, 0, 1 << 26, &s, &err), WEFT_OK, "%s", err.msg);
+    cr_assert_eq(weft_store_open(fixture_dir, 0, 1 << 26, &s, &err), WEFT_OK, "%s", err.msg);
     uint64_t live;
     cr_assert_eq(weft_store_head(s, &live, NULL, &err), WEFT_OK);
     cr_assert_eq(live, 1);
@@ -181,7 +168,7 @@ Test(store, crash_before_commit_keeps_head)
 static void flip_byte_at(const char *pattern, size_t len)
 {
     char path[128];
-    snprintf(path, sizeof path, "%s/data.mdb", dir);
+    snprintf(path, sizeof path, "%s/data.mdb", fixture_dir);
     FILE *f = fopen(path, "r+b");
     cr_assert_not_null(f);
     fseek(f, 0, SEEK_END);
@@ -204,12 +191,12 @@ Test(store, one_flipped_byte_is_detected)
 {
     weft_store *s = NULL;
     weft_error err;
-    cr_assert_eq(weft_store_open(dir, WEFT_STORE_CREATE, 1 << 26, &s, &err), WEFT_OK);
+    cr_assert_eq(weft_store_open(fixture_dir, WEFT_STORE_CREATE, 1 << 26, &s, &err), WEFT_OK);
     fill_matrix(12345.0f);
     write_snapshot(s, true, "one");
     weft_store_close(s);
     flip_byte_at((const char *)&matrix[100], 4 * sizeof(float));
-    cr_assert_eq(weft_store_open(dir, 0, 1 << 26, &s, &err), WEFT_OK);
+    cr_assert_eq(weft_store_open(fixture_dir, 0, 1 << 26, &s, &err), WEFT_OK);
     weft_snapshot *snap = NULL;
     cr_assert_eq(weft_snapshot_open(s, 1, &snap, &err), WEFT_ERR_CORRUPT);
     cr_assert(strstr(err.msg, "'m'") && strstr(err.msg, "CRC"), "message: %s", err.msg);
@@ -220,19 +207,19 @@ Test(store, readonly_open_of_an_empty_directory_says_so)
 {
     weft_store *s = NULL;
     weft_error err;
-    cr_assert_eq(weft_store_open(dir, WEFT_STORE_READONLY, 0, &s, &err), WEFT_ERR_NOT_FOUND);
-    cr_assert(strstr(err.msg, dir), "message: %s", err.msg);
+    cr_assert_eq(weft_store_open(fixture_dir, WEFT_STORE_READONLY, 0, &s, &err), WEFT_ERR_NOT_FOUND);
+    cr_assert(strstr(err.msg, fixture_dir), "message: %s", err.msg);
 }
 
 Test(store, readonly_open_reads_what_a_writer_stored)
 {
     weft_store *s = NULL;
     weft_error err;
-    cr_assert_eq(weft_store_open(dir, WEFT_STORE_CREATE, 1 << 26, &s, &err), WEFT_OK);
+    cr_assert_eq(weft_store_open(fixture_dir, WEFT_STORE_CREATE, 1 << 26, &s, &err), WEFT_OK);
     fill_matrix(3.0f);
     write_snapshot(s, true, "one");
     weft_store_close(s);
-    cr_assert_eq(weft_store_open(dir, WEFT_STORE_READONLY, 1 << 26, &s, &err), WEFT_OK, "%s",
+    cr_assert_eq(weft_store_open(fixture_dir, WEFT_STORE_READONLY, 1 << 26, &s, &err), WEFT_OK, "%s",
                  err.msg);
     uint64_t live = 0;
     cr_assert_eq(weft_store_head(s, &live, NULL, &err), WEFT_OK, "%s", err.msg);

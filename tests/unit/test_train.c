@@ -4,6 +4,7 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "fixture.h"
 #include "weft/eval.h"
 #include "weft/graph.h"
 #include "weft/snapshot.h"
@@ -90,10 +91,9 @@ Test(train, loss_falls_and_communities_separate)
     weft_graph_free(g);
 }
 
-Test(train, link_view_reads_back_what_was_written)
+Test(train, link_view_reads_back_what_was_written, .init = fixture_dir_create,
+     .fini = fixture_dir_remove)
 {
-    char dir[] = "/tmp/weft-train-test.XXXXXX";
-    cr_assert_not_null(mkdtemp(dir));
     weft_graph *g = two_communities();
     weft_train_link_config cfg;
     weft_train_link_defaults(&cfg);
@@ -106,7 +106,7 @@ Test(train, link_view_reads_back_what_was_written)
     weft_link_model m = weft_link_params_model(&p);
     weft_store *s = NULL;
     weft_store_writer *w = NULL;
-    cr_assert_eq(weft_store_open(dir, 0, 1 << 26, &s, &err), WEFT_OK, "%s", err.msg);
+    cr_assert_eq(weft_store_open(fixture_dir, 0, 1 << 26, &s, &err), WEFT_OK, "%s", err.msg);
     cr_assert_eq(weft_store_writer_open(s, &w, NULL, &err), WEFT_OK);
     json_t *manifest = json_object();
     cr_assert_eq(weft_snapshot_put_link(w, manifest, g, &m, true, &err), WEFT_OK, "%s", err.msg);
@@ -132,7 +132,4 @@ Test(train, link_view_reads_back_what_was_written)
     json_decref(manifest);
     weft_link_params_fini(&p);
     weft_graph_free(g);
-    char cmd[64];
-    snprintf(cmd, sizeof cmd, "rm -rf '%s'", dir);
-    cr_assert_eq(system(cmd), 0);
 }
