@@ -29,7 +29,7 @@ done <"$E2E_TMP/examples"
 check "predict example lists 5 candidates" /usr/bin/python3 -c '
 import json, sys
 d = json.load(open(sys.argv[1]))
-assert len(d["predictions"]) == 5 and d["source"] == "m0", d' "$E2E_TMP/ex1.json"
+assert len(d["predictions"]) == 5 and d["source"] == "n0", d' "$E2E_TMP/ex1.json"
 check "unknown node example is a JSON error with a hint" /usr/bin/python3 -c '
 import json, sys
 d = json.load(open(sys.argv[1]))
