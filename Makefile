@@ -27,6 +27,9 @@ $(BUILD)/%.o: %.c
 	@mkdir -p $(dir $@)
 	$(CC) $(CPPFLAGS) $(WARN) $(CFLAGS) -c $< -o $@
 
+# The dense training loops need the vectoriser's full cost model (include/weft/kernels.h).
+$(BUILD)/core/kernels.o: CFLAGS += -O3
+
 $(BUILD)/libweft.a: $(CORE_OBJ)
 	@mkdir -p $(dir $@)
 	rm -f $@

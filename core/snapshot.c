@@ -294,25 +294,37 @@ weft_err weft_snapshot_link_view(const weft_snapshot *snap, weft_link_view *out,
     weft_link_view v;
     memset(&v, 0, sizeof v);
     const char *kind = json_string_value(json_object_get(link, "kind"));
-    if (!kind || strcmp(kind, "dot") != 0)
+    if (!kind || !weft_model_kind_parse(kind, &v.kind))
         return weft_error_set(err, WEFT_ERR_CORRUPT, "version %llu: unknown link model '%s'",
                               (unsigned long long)snap->version, kind ? kind : "");
-    v.kind = WEFT_LINK_DOT;
     v.has_self_loops = json_is_true(json_object_get(link, "self_loops"));
     v.is_probability = json_is_true(json_object_get(link, "probability"));
+    bool has_reciprocal = json_is_true(json_object_get(link, "reciprocal"));
     weft_err e;
     if ((e = names_view(snap, "nodes", &v.nodes, err)) ||
         (e = names_view(snap, "relations", &v.relations, err)))
         return e;
     v.n_nodes = v.nodes.n;
     v.n_relations = v.relations.n;
-    weft_blob ent;
+    weft_blob ent, rel = { 0 };
     if ((e = need_blob(snap, "entity", WEFT_DTYPE_F32, 2, &ent, err)))
         return e;
-    if (ent.shape[0] != v.n_nodes || ent.shape[1] == 0)
-        return fail_blob(err, snap->version, "entity", "rows disagree with the node table");
+    if (ent.shape[0] != v.n_nodes || ent.shape[1] == 0 ||
+        (v.kind == WEFT_LINK_COMPLEX && ent.shape[1] % 2))
+        return fail_blob(err, snap->version, "entity", "shape disagrees with the node table");
     v.dim = ent.shape[1];
     v.entity = ent.data;
+    if (v.kind != WEFT_LINK_DOT) {
+        size_t rows = v.n_relations * (has_reciprocal ? 2 : 1);
+        if ((e = need_blob(snap, "relation", WEFT_DTYPE_F32, 2, &rel, err)))
+            return e;
+        if (rel.shape[0] != rows || rel.shape[1] != v.dim)
+            return fail_blob(err, snap->version, "relation", "shape disagrees with the model");
+    }
+    v.model = (weft_link_model){ .kind = v.kind, .n_entities = v.n_nodes,
+                                 .n_relations = v.n_relations, .dim = v.dim,
+                                 .has_reciprocal = has_reciprocal, .entity = ent.data,
+                                 .relation = rel.data };
     if ((e = csr_view(snap, "known_out", v.n_nodes, v.n_nodes, v.n_relations, &v.known_out,
                       err)) ||
         (e = csr_view(snap, "known_in", v.n_nodes, v.n_nodes, v.n_relations, &v.known_in, err)))
@@ -360,15 +372,19 @@ weft_err weft_snapshot_put_link(weft_store_writer *w, json_t *manifest, const we
                               "model of %zu nodes does not match the graph's %zu", m->n_entities,
                               g->nodes.n);
     size_t shape[2] = { m->n_entities, m->dim };
+    size_t rel_shape[2] = { m->n_relations * (m->has_reciprocal ? 2 : 1), m->dim };
     weft_err e;
     if ((e = put_names(w, "nodes", &g->nodes, err)) ||
         (e = put_names(w, "relations", &g->relations, err)) ||
         (e = weft_store_writer_put(w, "entity", WEFT_DTYPE_F32, 2, shape, m->entity, err)) ||
+        (m->relation &&
+         (e = weft_store_writer_put(w, "relation", WEFT_DTYPE_F32, 2, rel_shape, m->relation,
+                                    err))) ||
         (e = put_csr(w, "known_out", &g->out, err)) || (e = put_csr(w, "known_in", &g->in, err)))
         return e;
-    json_t *link = json_pack("{s:s, s:I, s:b, s:b}", "kind", weft_model_kind_name(m->kind),
+    json_t *link = json_pack("{s:s, s:I, s:b, s:b, s:b}", "kind", weft_model_kind_name(m->kind),
                              "dim", (json_int_t)m->dim, "self_loops", g->n_self_loops > 0,
-                             "probability", is_probability);
+                             "probability", is_probability, "reciprocal", m->has_reciprocal);
     if (!link || json_object_set_new(manifest, "link", link))
         return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory writing the manifest");
     return WEFT_OK;

@@ -117,15 +117,7 @@ static weft_err score_targets(const weft_link_view *v, const struct predict_quer
     if (!weft_model_kind_name(v->kind))
         return weft_error_set(err, WEFT_ERR_CORRUPT, "link model kind %d is not served",
                               (int)v->kind);
-    const weft_link_model model = {
-        .kind = v->kind,
-        .n_entities = v->n_nodes,
-        .n_relations = v->n_relations,
-        .dim = v->dim,
-        .entity = v->entity,
-        .relation = NULL,
-    };
-    weft_model_query(&model, q->source, q->relation, false, query);
+    weft_model_query(&v->model, q->source, q->relation, false, query);
     uint64_t first = 0;
     size_t n_known = 0;
     weft_csr_range(&v->known_out, q->source, q->relation, &first, &n_known);

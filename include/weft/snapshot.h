@@ -66,10 +66,11 @@ bool weft_snapshot_blob(const weft_snapshot *snap, const char *name, weft_blob *
  */
 typedef struct weft_link_view {
     weft_link_kind kind;
-    size_t n_nodes, n_relations, dim;
+    size_t n_nodes, n_relations, dim;   /**< n_relations: as named (reciprocals not counted) */
     weft_names_view nodes;
     weft_names_view relations;
-    const float *entity;    /**< (n_nodes, dim) */
+    const float *entity;    /**< (n_nodes, dim); the same as model.entity */
+    weft_link_model model;  /**< the parameters, for weft_model_query / weft_eval_model_scores */
     weft_csr known_out;     /**< every known link by source */
     weft_csr known_in;      /**< every known link by target */
     bool has_self_loops;    /**< the known graph holds self-loops (else self is never a candidate) */

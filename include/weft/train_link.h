@@ -1,65 +1,133 @@
-/* weft: training link models with negative sampling, the logistic loss and Adagrad. */
+/* weft: training link models (dot, DistMult, ComplEx) with negative sampling or 1-vs-all
+ * scoring, Adagrad or Adam, L2 or N3 regularisation, and early stopping on validation MRR. */
 #ifndef WEFT_TRAIN_LINK_H
 #define WEFT_TRAIN_LINK_H
 
+#include <stdbool.h>
 #include <stddef.h>
 #include <stdint.h>
 
 #include "weft/error.h"
+#include "weft/eval.h"
 #include "weft/graph.h"
 #include "weft/model.h"
+
+/** Training losses. */
+typedef enum weft_loss {
+    /** Each positive against cfg->negatives corruptions of its head or tail (a fair coin,
+     *  uniform nodes): softplus(-x_pos) + sum softplus(x_neg). */
+    WEFT_LOSS_LOGISTIC = 1,
+    /** Softmax cross-entropy of the true tail over all nodes ("1-vs-all", Dettmers et al.
+     *  2018; Lacroix et al. 2018), heads through reciprocal relations r + n_relations. */
+    WEFT_LOSS_SOFTMAX = 2
+} weft_loss;
+
+/** Optimisers. */
+typedef enum weft_optim {
+    WEFT_OPTIM_ADAGRAD = 1,  /**< Duchi, Hazan & Singer 2011 */
+    WEFT_OPTIM_ADAM = 2      /**< Kingma & Ba 2015, beta1 0.9, beta2 0.999, eps 1e-8 */
+} weft_optim;
+
+/** Regularisers, applied to the embeddings each step touches. */
+typedef enum weft_reg {
+    WEFT_REG_L2 = 1,   /**< weight * sum x^2 */
+    WEFT_REG_N3 = 2    /**< weight * sum |x|^3 (Lacroix, Usunier & Obozinski 2018), moduli for ComplEx */
+} weft_reg;
+
+/** "logistic", "softmax", "adagrad", "adam", "l2", "n3"; parse returns false when unknown. */
+const char *weft_train_loss_name(weft_loss v);
+bool weft_train_loss_parse(const char *s, weft_loss *out);
+const char *weft_train_optim_name(weft_optim v);
+bool weft_train_optim_parse(const char *s, weft_optim *out);
+const char *weft_train_reg_name(weft_reg v);
+bool weft_train_reg_parse(const char *s, weft_reg *out);
 
 /** Hyper-parameters of one training run. */
 typedef struct weft_train_link_config {
     weft_link_kind kind;
-    size_t dim;        /**< embedding size */
-    size_t epochs;     /**< passes over the training edges */
-    size_t negatives;  /**< corrupted triples per positive (head or tail, uniformly) */
-    size_t n_threads;  /**< Hogwild-style threads; 1 gives bit-identical runs per seed */
-    float lr;          /**< Adagrad learning rate */
-    float l2;          /**< L2 penalty on the embeddings each step touches */
+    weft_loss loss;
+    weft_optim optim;
+    weft_reg reg;
+    size_t dim;          /**< embedding size (ComplEx: real + imaginary parts, even) */
+    size_t epochs;       /**< most passes over the training edges */
+    size_t negatives;    /**< logistic loss: corruptions per positive */
+    size_t batch;        /**< softmax loss: queries per step */
+    size_t n_threads;    /**< threads; 1 with a fixed seed gives bit-identical parameters */
+    float lr;
+    float reg_weight;
+    float init_scale;    /**< initial embeddings ~ N(0, init_scale^2) */
     uint64_t seed;
+    size_t eval_every;   /**< epochs between validation evaluations (>= 1) */
+    size_t patience;     /**< evaluations without a better validation MRR before stopping; 0: never */
+    double max_seconds;  /**< stop after the epoch that reaches this much training time; 0: none */
 } weft_train_link_config;
 
-/** Fill @p c with the defaults: dot, dim 64, 50 epochs, 5 negatives, lr 0.1, l2 1e-5, seed 1, 1 thread. */
-void weft_train_link_defaults(weft_train_link_config *c);
+/**
+ * Fill @p c with the defaults for @p kind and a graph of @p n_entities nodes: what users get
+ * without tuning flags. DistMult and ComplEx: softmax loss (1-vs-all) when the node count
+ * allows, Adagrad lr 0.1, N3 0.1... (see train_link.c for the values and their sources).
+ */
+void weft_train_link_defaults(weft_train_link_config *c, weft_link_kind kind, size_t n_entities);
+
+/** Validation data for early stopping; the filter is every known true triple. */
+typedef struct weft_train_validation {
+    const weft_triple *valid;
+    size_t n_valid;
+    const weft_eval_filter *filter;
+    bool both_directions;
+} weft_train_validation;
 
 /** What one finished epoch reports. */
 typedef struct weft_train_epoch {
-    size_t epoch, epochs;   /**< 1-based epoch, total */
-    double loss;            /**< mean loss per positive edge (positive plus its negatives) */
-    double seconds;         /**< wall time of this epoch */
-    double triples_per_s;   /**< positive edges per second */
+    size_t epoch, epochs;   /**< 1-based epoch, most epochs */
+    double loss;            /**< mean loss per training query of this epoch */
+    double seconds;         /**< wall time of this epoch's training (validation excluded) */
+    double triples_per_s;   /**< training edges per second */
+    double valid_mrr;       /**< filtered validation MRR after this epoch, NaN if not evaluated */
+    double eval_seconds;    /**< wall time of that evaluation */
+    size_t best_epoch;      /**< epoch of the best validation MRR so far (0: none yet) */
 } weft_train_epoch;
 
 /** Called after each epoch; may be NULL. */
 typedef void (*weft_train_progress_fn)(void *ctx, const weft_train_epoch *ep);
 
 /**
- * Trained parameters. One slab holds parameters then Adagrad accumulators; entity and
- * relation are views into it. Release with weft_link_params_fini().
+ * Trained parameters: one slab holds entity then relation embeddings; entity and relation
+ * are views into it. Release with weft_link_params_fini().
  */
 typedef struct weft_link_params {
     weft_link_kind kind;
     size_t n_entities, n_relations, dim;
+    bool has_reciprocal;   /**< relation holds 2 * n_relations rows: r, then its inverse */
     float *slab;
-    float *entity;     /**< (n_entities, dim) */
-    float *relation;   /**< (n_relations, dim), NULL for dot */
-    float *accum;      /**< Adagrad sums of squared gradients, same layout as the parameters */
+    float *entity;         /**< (n_entities, dim) */
+    float *relation;       /**< (n_relations or 2 * n_relations, dim); NULL for dot */
 } weft_link_params;
+
+/** How a run ended. */
+typedef struct weft_train_result {
+    size_t epochs_run;
+    size_t best_epoch;        /**< epoch whose parameters were kept (the last without validation) */
+    double best_valid_mrr;    /**< NaN without validation */
+    bool is_early_stop;       /**< stopped by patience */
+    bool is_out_of_time;      /**< stopped by max_seconds */
+    double train_seconds;     /**< training time, validation excluded */
+    double eval_seconds;      /**< validation time */
+} weft_train_result;
 
 /**
  * Train on @p train (m triples over @p n_entities nodes and @p n_relations relations).
- * Each positive (s, r, t) is paired with cfg->negatives corruptions, each replacing the head
- * or the tail (a fair coin) by a uniformly drawn node; loss per positive is
- * softplus(-x_pos) + sum softplus(x_neg) (the logistic loss), minimised by Adagrad
- * (Duchi, Hazan & Singer 2011) with a per-coordinate step lr / sqrt(eps + sum g^2).
- * @param out  on success, the parameters (caller releases with weft_link_params_fini())
+ * With @p val (may be NULL) the filtered validation MRR is computed every cfg->eval_every
+ * epochs and the parameters of the best evaluation are kept; training stops after
+ * cfg->patience evaluations without improvement.
+ * @param out     on success, the parameters (caller releases with weft_link_params_fini())
+ * @param result  may be NULL
  * @return WEFT_OK, WEFT_ERR_INVALID (bad config, m == 0), WEFT_ERR_NOMEM
  */
 weft_err weft_train_link_run(const weft_train_link_config *cfg, const weft_triple *train,
                              size_t m, size_t n_entities, size_t n_relations,
-                             weft_train_progress_fn progress, void *ctx, weft_link_params *out,
+                             const weft_train_validation *val, weft_train_progress_fn progress,
+                             void *ctx, weft_link_params *out, weft_train_result *result,
                              weft_error *err);
 
 /** Release @p p's slab; NULL does nothing. */
