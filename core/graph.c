@@ -251,38 +251,36 @@ void weft_csr_fini(weft_csr *c)
 }
 
 /*
- * Unique edges of g into a new array *out, *n_out of them. Undirected input is first put in
- * (min, r, max) form so that a-b and b-a meet as duplicates; the reverses of the unique
- * non-loop edges are then appended and the whole re-sorted.
+ * Undirected input is first put in (min, r, max) form so that a-b and b-a meet as
+ * duplicates; the reverses of the unique non-loop edges are then appended and the whole
+ * re-sorted.
  */
-static weft_err unique_edges(const weft_graph *g, weft_triple **out, size_t *n_out,
-                             size_t *n_dup, size_t *n_loops, weft_error *err)
+weft_err weft_graph_unique_triples(const weft_triple *in, size_t m, bool is_undirected,
+                                   weft_triple **out, size_t *n_out, size_t *n_dup,
+                                   weft_error *err)
 {
-    bool is_undirected = (g->flags & WEFT_GRAPH_UNDIRECTED) != 0;
-    size_t m = g->n_edges;
     if (is_undirected && m > SIZE_MAX / 2)
         return weft_error_set(err, WEFT_ERR_NOMEM, "too many edges");
     weft_triple *e = weft_alloc_array(is_undirected ? 2 * m : m, sizeof *e);
     if (!e)
         return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory for %zu edges", m);
-    memcpy(e, g->edges, m * sizeof *e);
+    if (m)
+        memcpy(e, in, m * sizeof *e);
     if (is_undirected)
         for (size_t i = 0; i < m; i++)
             if (e[i].s > e[i].t)
                 e[i] = (weft_triple){ e[i].t, e[i].r, e[i].s };
-    size_t u = sort_unique(e, m), loops = 0, total = u;
-    for (size_t i = 0; i < u; i++) {
-        if (e[i].s == e[i].t)
-            loops++;
-        else if (is_undirected)
-            e[total++] = (weft_triple){ e[i].t, e[i].r, e[i].s };
-    }
+    size_t u = sort_unique(e, m), total = u;
+    if (is_undirected)
+        for (size_t i = 0; i < u; i++)
+            if (e[i].s != e[i].t)
+                e[total++] = (weft_triple){ e[i].t, e[i].r, e[i].s };
     if (total != u)
         qsort(e, total, sizeof *e, cmp_triple);
     *out = e;
     *n_out = total;
-    *n_dup = m - u;
-    *n_loops = loops;
+    if (n_dup)
+        *n_dup = m - u;
     return WEFT_OK;
 }
 
@@ -296,9 +294,12 @@ weft_err weft_graph_finalize(weft_graph *g, weft_error *err)
         return weft_error_set(err, WEFT_ERR_INVALID, "empty graph: no edges");
     weft_triple *e = NULL;
     size_t n = 0, n_dup = 0, n_loops = 0;
-    rc = unique_edges(g, &e, &n, &n_dup, &n_loops, err);
+    rc = weft_graph_unique_triples(g->edges, g->n_edges, (g->flags & WEFT_GRAPH_UNDIRECTED) != 0,
+                                   &e, &n, &n_dup, err);
     if (rc != WEFT_OK)
         return rc;
+    for (size_t i = 0; i < n; i++)
+        n_loops += e[i].s == e[i].t;
     weft_csr out = { 0 }, in = { 0 };
     rc = weft_graph_build_csr(&out, e, n, g->nodes.n, false, err);
     if (rc == WEFT_OK)
@@ -317,6 +318,196 @@ weft_err weft_graph_finalize(weft_graph *g, weft_error *err)
     g->out = out;
     g->in = in;
     g->is_final = true;
+    return WEFT_OK;
+}
+
+/* The part keeps a copy of what the graph gained from the file; if the copy cannot be made,
+ * the graph goes back to its mark, so both change together or not at all. */
+weft_err weft_graph_load_part(weft_graph *g, const char *path, weft_graph_part *part,
+                              weft_error *err)
+{
+    if (part->is_final)
+        return weft_error_set(err, WEFT_ERR_INVALID, "%s: the part is already final", path);
+    graph_mark mark = graph_mark_take(g);
+    weft_err rc = weft_graph_load_edges(g, path, err);
+    if (rc != WEFT_OK)
+        return rc;
+    size_t added = g->n_edges - mark.n_edges;
+    if (weft_grow_array((void **)&part->edges, &part->edges_cap, part->n_edges + added,
+                        sizeof *part->edges)) {
+        graph_mark_restore(g, &mark);
+        return weft_error_set(err, WEFT_ERR_NOMEM, "%s: out of memory for %zu edges", path,
+                              added);
+    }
+    if (added)
+        memcpy(part->edges + part->n_edges, g->edges + mark.n_edges, added * sizeof *g->edges);
+    part->n_edges += added;
+    part->n_input_edges += added;
+    return WEFT_OK;
+}
+
+weft_err weft_graph_part_finalize(const weft_graph *g, weft_graph_part *part, weft_error *err)
+{
+    if (!g->is_final || part->is_final)
+        return weft_error_set(err, WEFT_ERR_INVALID,
+                              "a part is finalized once, after its graph");
+    bool is_undirected = (g->flags & WEFT_GRAPH_UNDIRECTED) != 0;
+    weft_triple *e = NULL;
+    size_t n = 0, n_dup = 0;
+    weft_err rc = weft_graph_unique_triples(part->edges, part->n_edges, is_undirected, &e, &n,
+                                            &n_dup, err);
+    if (rc != WEFT_OK)
+        return rc;
+    free(part->edges);
+    part->edges = e;
+    part->n_edges = n;
+    part->edges_cap = n;
+    part->n_duplicates = n_dup;
+    part->n_unique = part->n_input_edges - n_dup;
+    part->is_undirected = is_undirected;
+    part->is_final = true;
+    return WEFT_OK;
+}
+
+void weft_graph_part_fini(weft_graph_part *part)
+{
+    if (!part)
+        return;
+    free(part->edges);
+    memset(part, 0, sizeof *part);
+}
+
+weft_err weft_graph_part_compare(const weft_graph *g, const weft_graph_part *train,
+                                 const weft_graph_part *held, weft_graph_part_overlap *out,
+                                 weft_error *err)
+{
+    if (!train->is_final || !held->is_final)
+        return weft_error_set(err, WEFT_ERR_INVALID, "parts are compared once final");
+    size_t n_nodes = g->nodes.n, n_rel = g->relations.n;
+    bool *node_seen = weft_calloc_array(n_nodes, sizeof *node_seen);
+    bool *rel_seen = weft_calloc_array(n_rel, sizeof *rel_seen);
+    if (!node_seen || !rel_seen) {
+        free(node_seen);
+        free(rel_seen);
+        return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory comparing parts");
+    }
+    for (size_t i = 0; i < train->n_edges; i++) {
+        node_seen[train->edges[i].s] = node_seen[train->edges[i].t] = true;
+        rel_seen[train->edges[i].r] = true;
+    }
+    weft_graph_part_overlap o = { 0, 0, 0 };
+    for (size_t i = 0; i < held->n_edges; i++) {
+        const weft_triple *e = &held->edges[i];
+        if (held->is_undirected && e->s > e->t)
+            continue;   /* the pair is counted at its (min, max) direction */
+        if (train->n_edges &&
+            bsearch(e, train->edges, train->n_edges, sizeof *e, cmp_triple) != NULL)
+            o.n_shared++;
+        if (!node_seen[e->s] || !node_seen[e->t])
+            o.n_unseen_node++;
+        if (!rel_seen[e->r])
+            o.n_unseen_relation++;
+    }
+    free(node_seen);
+    free(rel_seen);
+    *out = o;
+    return WEFT_OK;
+}
+
+/* Id of name field @p f of @p rec in @p names, or WEFT_ERR_NOT_FOUND naming file and line. */
+static weft_err find_field(const weft_io_reader *rd, const weft_io_record *rec, size_t f,
+                           const char *what, const char *kind, const weft_names_view *names,
+                           uint32_t *id, weft_error *err)
+{
+    weft_err rc = weft_io_check_name(rd, rec, f, what, err);
+    if (rc != WEFT_OK)
+        return rc;
+    if (weft_names_find(names, rec->field[f - 1], rec->len[f - 1], id))
+        return WEFT_OK;
+    return weft_error_set(err, WEFT_ERR_NOT_FOUND, "%s:%zu: field %zu (%s): unknown %s '%.80s'",
+                          weft_io_path(rd), rec->lineno, f, what, kind, rec->field[f - 1]);
+}
+
+static weft_err read_record(const weft_io_reader *rd, const weft_io_record *rec,
+                            const weft_names_view *nodes, const weft_names_view *relations,
+                            weft_triple *out, weft_error *err)
+{
+    size_t tf = rec->n_fields;   /* the target is the last field */
+    weft_triple e;
+    weft_err rc = find_field(rd, rec, 1, "source", "node", nodes, &e.s, err);
+    if (rc == WEFT_OK && tf == 3)
+        rc = find_field(rd, rec, 2, "relation", "relation", relations, &e.r, err);
+    if (rc == WEFT_OK && tf == 2 &&
+        !weft_names_find(relations, WEFT_GRAPH_DEFAULT_RELATION,
+                         strlen(WEFT_GRAPH_DEFAULT_RELATION), &e.r))
+        rc = weft_error_set(err, WEFT_ERR_NOT_FOUND,
+                            "%s:%zu: a 2-column line has relation '%s', which is unknown",
+                            weft_io_path(rd), rec->lineno, WEFT_GRAPH_DEFAULT_RELATION);
+    if (rc == WEFT_OK)
+        rc = find_field(rd, rec, tf, "target", "node", nodes, &e.t, err);
+    if (rc == WEFT_OK)
+        *out = e;
+    return rc;
+}
+
+weft_err weft_graph_read_triples(const char *path, const weft_names_view *nodes,
+                                 const weft_names_view *relations, weft_triple **out,
+                                 size_t *n_out, weft_error *err)
+{
+    weft_io_reader *rd = NULL;
+    weft_err rc = weft_io_open(path, &rd, err);
+    if (rc != WEFT_OK)
+        return rc;
+    weft_triple *e = NULL;
+    size_t n = 0, cap = 0, n_cols = 0, first_line = 0;
+    for (;;) {
+        weft_io_record rec;
+        bool eof = false;
+        rc = weft_io_next(rd, &rec, &eof, err);
+        if (rc != WEFT_OK || eof)
+            break;
+        rc = check_columns(rd, &rec, &n_cols, &first_line, err);
+        if (rc == WEFT_OK && weft_grow_array((void **)&e, &cap, n + 1, sizeof *e))
+            rc = weft_error_set(err, WEFT_ERR_NOMEM, "%s: out of memory for edges", path);
+        if (rc == WEFT_OK)
+            rc = read_record(rd, &rec, nodes, relations, &e[n], err);
+        if (rc != WEFT_OK)
+            break;
+        n++;
+    }
+    weft_io_close(rd);
+    if (rc != WEFT_OK) {
+        free(e);
+        return rc;
+    }
+    if (!e && !(e = weft_alloc_array(0, sizeof *e)))
+        return weft_error_set(err, WEFT_ERR_NOMEM, "%s: out of memory", path);
+    *out = e;
+    *n_out = n;
+    return WEFT_OK;
+}
+
+weft_err weft_csr_triples_except(const weft_csr *c, const weft_triple *drop, size_t n_drop,
+                                 weft_triple **out, size_t *n_out, weft_error *err)
+{
+    size_t m = c->n_rows ? (size_t)c->off[c->n_rows] : 0;
+    weft_triple *e = weft_alloc_array(m, sizeof *e);
+    if (!e)
+        return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory for %zu edges", m);
+    /* Rows ascend by source and each row by (relation, neighbour): the walk is in (s, r, t)
+     * order, as is @p drop, so one merge finds every triple to leave out. */
+    size_t n = 0, d = 0;
+    for (size_t v = 0; v < c->n_rows; v++)
+        for (uint64_t j = c->off[v]; j < c->off[v + 1]; j++) {
+            weft_triple x = { (uint32_t)v, c->rel[j], c->nbr[j] };
+            while (d < n_drop && cmp_triple(&drop[d], &x) < 0)
+                d++;
+            if (d < n_drop && cmp_triple(&drop[d], &x) == 0)
+                continue;
+            e[n++] = x;
+        }
+    *out = e;
+    *n_out = n;
     return WEFT_OK;
 }
 

@@ -7,6 +7,7 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <unistd.h>
 
 int cmd_report_error(const weft_error *err)
 {
@@ -72,4 +73,10 @@ const char *cmd_opt_value(const char *sub, int argc, char **argv, int *i, const 
     }
     *i += 1;
     return argv[*i];
+}
+
+size_t cmd_online_cpus(void)
+{
+    long n = sysconf(_SC_NPROCESSORS_ONLN);
+    return n > 0 ? (size_t)n : 1;
 }

@@ -1,12 +1,16 @@
-/* weft train: ingest, split, train, evaluate beside the baseline, write a snapshot, promote. */
+/* weft train: ingest (one edge set with a seeded holdout, or train/valid/test files), train
+ * with early stopping on validation, evaluate beside the popularity baseline, write a
+ * snapshot, promote it. */
+#include <cblas.h>
 #include <jansson.h>
+#include <math.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
 #include <unistd.h>
 
 #include "cmd.h"
-#include "weft/baseline.h"
+#include "weft/alloc.h"
 #include "weft/eval.h"
 #include "weft/graph.h"
 #include "weft/io.h"
@@ -18,51 +22,260 @@
 #define SUB "train"
 #define MAX_EDGE_FILES 64
 
+/* Held out when neither --holdout nor --test is given: valid, test. */
+#define DEFAULT_FRAC_VALID 0.05
+#define DEFAULT_FRAC_TEST 0.1
+
+/* Tuning flags the user gave: each overrides what weft_train_link_defaults() chose. */
+enum {
+    GIVEN_MODEL = 1u << 0,
+    GIVEN_LOSS = 1u << 1,
+    GIVEN_OPTIM = 1u << 2,
+    GIVEN_REG = 1u << 3,
+    GIVEN_REG_WEIGHT = 1u << 4,
+    GIVEN_LR = 1u << 5,
+    GIVEN_DIM = 1u << 6,
+    GIVEN_EPOCHS = 1u << 7,
+    GIVEN_NEGATIVES = 1u << 8,
+    GIVEN_BATCH = 1u << 9,
+    GIVEN_INIT = 1u << 10,
+    GIVEN_SEED = 1u << 11,
+    GIVEN_THREADS = 1u << 12,
+    GIVEN_EVAL_EVERY = 1u << 13,
+    GIVEN_PATIENCE = 1u << 14
+};
+
 struct train_opts {
     const char *store;
     const char *edges[MAX_EDGE_FILES];
     size_t n_edges;
+    const char *valid, *test;     /* files; NULL with a holdout */
     const char *report;
-    double holdout;
+    double frac_valid, frac_test;
+    bool has_holdout;
     bool is_undirected;
     bool is_quiet;
-    weft_train_link_config cfg;
+    unsigned given;               /* GIVEN_* */
+    weft_train_link_config set;   /* the values of the given flags */
 };
 
 static void print_help(void)
 {
     printf("usage: weft train --store DIR --edges FILE [--edges FILE...] [options]\n\n"
            "Reads edge files (TSV or CSV, 2 columns source,target or 3 source,relation,target,\n"
-           "gzip allowed), holds out a seeded share of edges for testing, trains a link model,\n"
-           "reports filtered MRR and Hits@k beside the popularity baseline, stores the model as\n"
-           "the next snapshot version and makes it live.\n\n"
-           "options:\n"
+           "gzip allowed). Either holds out a seeded share of them for validation and testing\n"
+           "(every node and relation of a held-out edge keeps an edge in train), or reads the\n"
+           "held-out edges from --valid and --test files. Trains a link model, stopping early\n"
+           "when the validation MRR stops improving and keeping its best epoch; reports\n"
+           "filtered MRR, mean rank and Hits@1/3/10, overall and per relation, and for\n"
+           "one-relation graphs AUC-ROC and average precision against sampled non-edges, each\n"
+           "beside the popularity baseline; stores the model as the next snapshot version and\n"
+           "makes it live.\n\n"
+           "input:\n"
            "  --store DIR        snapshot store (created if absent)\n"
-           "  --edges FILE       edge file; repeat for several\n"
-           "  --model KIND       link model: dot (default dot)\n"
-           "  --undirected       each edge a-b also stands for b-a\n"
-           "  --dim D            embedding size (default 64)\n"
-           "  --epochs E         passes over the training edges (default 50)\n"
-           "  --negatives N      corrupted edges per positive (default 5)\n"
-           "  --lr X             Adagrad learning rate (default 0.1)\n"
-           "  --l2 X             L2 penalty (default 1e-5)\n"
-           "  --holdout F        share of edges held out for testing (default 0.1)\n"
-           "  --seed S           seed of the split, initialisation and sampling (default 1)\n"
-           "  --threads N        training and evaluation threads (default 1)\n"
+           "  --edges FILE       edge file; repeat for several (with --test: the training edges)\n"
+           "  --holdout [V,]T    shares held out for validation and testing (default %g,%g);\n"
+           "                     one number T holds out T for testing and nothing for validation\n"
+           "  --valid FILE       validation edges (needs --test)\n"
+           "  --test FILE        test edges, instead of a holdout\n"
+           "  --undirected       each edge a-b also stands for b-a\n\n"
+           "model and training (defaults depend on the model and the number of nodes; the\n"
+           "values used are printed and stored in the snapshot's manifest):\n"
+           "  --model KIND       dot, distmult or complex (default: dot for one relation,\n"
+           "                     distmult for several)\n"
+           "  --loss L           logistic (negative sampling) or softmax (1-vs-all)\n"
+           "  --optimizer O      adagrad or adam\n"
+           "  --reg R            l2 or n3\n"
+           "  --reg-weight X     regularisation weight\n"
+           "  --lr X             learning rate\n"
+           "  --dim D            embedding size (complex: even)\n"
+           "  --epochs E         most passes over the training edges\n"
+           "  --negatives N      logistic loss: corruptions per positive\n"
+           "  --batch B          softmax loss: queries per step\n"
+           "  --init X           initial embeddings ~ N(0, X^2)\n"
+           "  --seed S           seed of the split, initialisation, sampling and the negatives of\n"
+           "                     AUC (default 1)\n"
+           "  --threads N        training and evaluation threads (default: the online CPUs);\n"
+           "                     1 with a fixed seed gives bit-identical snapshots\n"
+           "  --eval-every E     epochs between validation evaluations\n"
+           "  --patience P       evaluations without a better validation MRR before stopping\n"
+           "                     (0: never stop early)\n\n"
+           "output:\n"
            "  --report FILE      write the evaluation report as JSON\n"
-           "  --quiet            no per-epoch progress\n");
+           "  --quiet            no per-epoch progress\n",
+           DEFAULT_FRAC_VALID, DEFAULT_FRAC_TEST);
+}
+
+/* "--holdout T" or "--holdout V,T". */
+static bool parse_holdout(const char *v, struct train_opts *o)
+{
+    const char *comma = strchr(v, ',');
+    double a = 0.0, b = 0.0;
+    if (!comma) {
+        if (!cmd_parse_double(SUB, "--holdout", v, 0.001, 0.5, &b))
+            return false;
+    } else {
+        char first[64];
+        size_t n = (size_t)(comma - v);
+        if (n >= sizeof first) {
+            cmd_usage_error(SUB, "--holdout: '%s' is not V,T", v);
+            return false;
+        }
+        memcpy(first, v, n);
+        first[n] = '\0';
+        if (!cmd_parse_double(SUB, "--holdout (validation share)", first, 0.0, 0.5, &a) ||
+            !cmd_parse_double(SUB, "--holdout (test share)", comma + 1, 0.001, 0.5, &b))
+            return false;
+    }
+    o->frac_valid = a;
+    o->frac_test = b;
+    o->has_holdout = true;
+    return true;
+}
+
+/* Options that take a name from a fixed list. Returns false after a usage error. */
+static bool parse_named(const char *flag, const char *v, struct train_opts *o)
+{
+    bool ok = false;
+    const char *known = "";
+    if (!strcmp(flag, "--model")) {
+        ok = weft_model_kind_parse(v, &o->set.kind);
+        known = "dot, distmult, complex";
+        o->given |= GIVEN_MODEL;
+    } else if (!strcmp(flag, "--loss")) {
+        ok = weft_train_loss_parse(v, &o->set.loss);
+        known = "logistic, softmax";
+        o->given |= GIVEN_LOSS;
+    } else if (!strcmp(flag, "--optimizer")) {
+        ok = weft_train_optim_parse(v, &o->set.optim);
+        known = "adagrad, adam";
+        o->given |= GIVEN_OPTIM;
+    } else {
+        ok = weft_train_reg_parse(v, &o->set.reg);
+        known = "l2, n3";
+        o->given |= GIVEN_REG;
+    }
+    if (!ok)
+        cmd_usage_error(SUB, "%s: unknown value '%s' (known: %s)", flag, v, known);
+    return ok;
+}
+
+/* Whole-number tuning options: flag, bit, smallest, largest. */
+static const struct count_flag {
+    const char *flag;
+    unsigned bit;
+    uint64_t min, max;
+} count_flags[] = {
+    { "--dim", GIVEN_DIM, 1, 4096 },
+    { "--epochs", GIVEN_EPOCHS, 1, 1000000 },
+    { "--negatives", GIVEN_NEGATIVES, 1, 10000 },
+    { "--batch", GIVEN_BATCH, 1, 1000000 },
+    { "--seed", GIVEN_SEED, 0, UINT64_MAX },
+    { "--threads", GIVEN_THREADS, 1, 256 },
+    { "--eval-every", GIVEN_EVAL_EVERY, 1, 1000000 },
+    { "--patience", GIVEN_PATIENCE, 0, 1000000 },
+};
+
+static void set_count(struct train_opts *o, unsigned bit, uint64_t u)
+{
+    weft_train_link_config *c = &o->set;
+    switch (bit) {
+    case GIVEN_DIM: c->dim = u; break;
+    case GIVEN_EPOCHS: c->epochs = u; break;
+    case GIVEN_NEGATIVES: c->negatives = u; break;
+    case GIVEN_BATCH: c->batch = u; break;
+    case GIVEN_SEED: c->seed = u; break;
+    case GIVEN_THREADS: c->n_threads = u; break;
+    case GIVEN_EVAL_EVERY: c->eval_every = u; break;
+    case GIVEN_PATIENCE: c->patience = u; break;
+    }
+    o->given |= bit;
+}
+
+/* Real-valued tuning options: flag, bit, smallest, largest. */
+static const struct real_flag {
+    const char *flag;
+    unsigned bit;
+    double min, max;
+} real_flags[] = {
+    { "--lr", GIVEN_LR, 1e-9, 100.0 },
+    { "--reg-weight", GIVEN_REG_WEIGHT, 0.0, 100.0 },
+    { "--init", GIVEN_INIT, 1e-9, 100.0 },
+};
+
+static void set_real(struct train_opts *o, unsigned bit, double x)
+{
+    weft_train_link_config *c = &o->set;
+    if (bit == GIVEN_LR)
+        c->lr = (float)x;
+    else if (bit == GIVEN_REG_WEIGHT)
+        c->reg_weight = (float)x;
+    else
+        c->init_scale = (float)x;
+    o->given |= bit;
+}
+
+/* The tuning options; returns 1 when argv[*i] is one of them (then *rc is its verdict), 0
+ * when it is not. */
+static int parse_tuning(int argc, char **argv, int *i, struct train_opts *o, int *rc)
+{
+    bool bad = false;
+    const char *v;
+    *rc = CMD_OK;
+    static const char *const named[] = { "--model", "--loss", "--optimizer", "--reg" };
+    for (size_t k = 0; k < sizeof named / sizeof named[0]; k++)
+        if ((v = cmd_opt_value(SUB, argc, argv, i, named[k], &bad)) || bad) {
+            if (bad || !parse_named(named[k], v, o))
+                *rc = CMD_USAGE;
+            return 1;
+        }
+    for (size_t k = 0; k < sizeof count_flags / sizeof count_flags[0]; k++) {
+        const struct count_flag *f = &count_flags[k];
+        uint64_t u;
+        if ((v = cmd_opt_value(SUB, argc, argv, i, f->flag, &bad)) || bad) {
+            if (bad || !cmd_parse_u64(SUB, f->flag, v, f->min, f->max, &u))
+                *rc = CMD_USAGE;
+            else
+                set_count(o, f->bit, u);
+            return 1;
+        }
+    }
+    for (size_t k = 0; k < sizeof real_flags / sizeof real_flags[0]; k++) {
+        const struct real_flag *f = &real_flags[k];
+        double x;
+        if ((v = cmd_opt_value(SUB, argc, argv, i, f->flag, &bad)) || bad) {
+            if (bad || !cmd_parse_double(SUB, f->flag, v, f->min, f->max, &x))
+                *rc = CMD_USAGE;
+            else
+                set_real(o, f->bit, x);
+            return 1;
+        }
+    }
+    return 0;
+}
+
+static int check_inputs(const struct train_opts *o)
+{
+    if (!o->store)
+        return cmd_usage_error(SUB, "--store DIR is required");
+    if (o->n_edges == 0)
+        return cmd_usage_error(SUB, "--edges FILE is required");
+    if (o->valid && !o->test)
+        return cmd_usage_error(SUB, "--valid needs --test (or use --holdout V,T)");
+    if (o->test && o->has_holdout)
+        return cmd_usage_error(SUB, "--holdout and --test exclude each other");
+    return CMD_OK;
 }
 
 static int parse_opts(int argc, char **argv, struct train_opts *o)
 {
     memset(o, 0, sizeof *o);
-    weft_train_link_defaults(&o->cfg);
-    o->holdout = 0.1;
+    o->frac_valid = DEFAULT_FRAC_VALID;
+    o->frac_test = DEFAULT_FRAC_TEST;
     for (int i = 1; i < argc; i++) {
         bool bad = false;
         const char *v;
-        uint64_t u;
-        double x;
+        int rc;
         if (!strcmp(argv[i], "--help") || !strcmp(argv[i], "-h")) {
             print_help();
             return -1;
@@ -76,151 +289,436 @@ static int parse_opts(int argc, char **argv, struct train_opts *o)
             if (o->n_edges == MAX_EDGE_FILES)
                 return cmd_usage_error(SUB, "at most %d --edges files", MAX_EDGE_FILES);
             o->edges[o->n_edges++] = v;
+        } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--valid", &bad))) {
+            o->valid = v;
+        } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--test", &bad))) {
+            o->test = v;
         } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--report", &bad))) {
             o->report = v;
-        } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--model", &bad))) {
-            if (!weft_model_kind_parse(v, &o->cfg.kind))
-                return cmd_usage_error(SUB, "--model: unknown kind '%s' (known: dot)", v);
-        } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--dim", &bad))) {
-            if (!cmd_parse_u64(SUB, "--dim", v, 1, 4096, &u))
-                return CMD_USAGE;
-            o->cfg.dim = u;
-        } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--epochs", &bad))) {
-            if (!cmd_parse_u64(SUB, "--epochs", v, 1, 1000000, &u))
-                return CMD_USAGE;
-            o->cfg.epochs = u;
-        } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--negatives", &bad))) {
-            if (!cmd_parse_u64(SUB, "--negatives", v, 1, 10000, &u))
-                return CMD_USAGE;
-            o->cfg.negatives = u;
-        } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--seed", &bad))) {
-            if (!cmd_parse_u64(SUB, "--seed", v, 0, UINT64_MAX, &u))
-                return CMD_USAGE;
-            o->cfg.seed = u;
-        } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--threads", &bad))) {
-            if (!cmd_parse_u64(SUB, "--threads", v, 1, 256, &u))
-                return CMD_USAGE;
-            o->cfg.n_threads = u;
-        } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--lr", &bad))) {
-            if (!cmd_parse_double(SUB, "--lr", v, 1e-9, 100.0, &x))
-                return CMD_USAGE;
-            o->cfg.lr = (float)x;
-        } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--l2", &bad))) {
-            if (!cmd_parse_double(SUB, "--l2", v, 0.0, 100.0, &x))
-                return CMD_USAGE;
-            o->cfg.l2 = (float)x;
         } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--holdout", &bad))) {
-            if (!cmd_parse_double(SUB, "--holdout", v, 0.001, 0.5, &x))
+            if (!parse_holdout(v, o))
                 return CMD_USAGE;
-            o->holdout = x;
+        } else if (!bad && parse_tuning(argc, argv, &i, o, &rc)) {
+            if (rc != CMD_OK)
+                return rc;
         } else if (!bad) {
             return cmd_usage_error(SUB, "unknown option '%s'", argv[i]);
         }
         if (bad)
             return CMD_USAGE;
     }
-    if (!o->store)
-        return cmd_usage_error(SUB, "--store DIR is required");
-    if (o->n_edges == 0)
-        return cmd_usage_error(SUB, "--edges FILE is required");
-    return CMD_OK;
+    return check_inputs(o);
 }
 
-/* Progress: a live line on a terminal, one log line per epoch otherwise. */
-struct progress {
-    bool is_tty, is_quiet;
-    json_t *curve;
-    double elapsed;
+/* The configuration: defaults for the model and graph size, then every flag given. */
+static void configure(const struct train_opts *o, const weft_graph *g,
+                      weft_train_link_config *c)
+{
+    weft_link_kind kind = g->relations.n > 1 ? WEFT_LINK_DISTMULT : WEFT_LINK_DOT;
+    if (o->given & GIVEN_MODEL)
+        kind = o->set.kind;
+    weft_train_link_defaults(c, kind, g->nodes.n);
+    c->n_threads = cmd_online_cpus();
+    const weft_train_link_config *s = &o->set;
+    unsigned f = o->given;   /* each flag given replaces the default */
+    c->loss = f & GIVEN_LOSS ? s->loss : c->loss;
+    c->optim = f & GIVEN_OPTIM ? s->optim : c->optim;
+    c->reg = f & GIVEN_REG ? s->reg : c->reg;
+    c->reg_weight = f & GIVEN_REG_WEIGHT ? s->reg_weight : c->reg_weight;
+    c->lr = f & GIVEN_LR ? s->lr : c->lr;
+    c->dim = f & GIVEN_DIM ? s->dim : c->dim;
+    c->epochs = f & GIVEN_EPOCHS ? s->epochs : c->epochs;
+    c->negatives = f & GIVEN_NEGATIVES ? s->negatives : c->negatives;
+    c->batch = f & GIVEN_BATCH ? s->batch : c->batch;
+    c->init_scale = f & GIVEN_INIT ? s->init_scale : c->init_scale;
+    c->seed = f & GIVEN_SEED ? s->seed : c->seed;
+    c->n_threads = f & GIVEN_THREADS ? s->n_threads : c->n_threads;
+    c->eval_every = f & GIVEN_EVAL_EVERY ? s->eval_every : c->eval_every;
+    c->patience = f & GIVEN_PATIENCE ? s->patience : c->patience;
+}
+
+static void print_config(const weft_train_link_config *c)
+{
+    printf("model: %s, dim %zu, loss %s", weft_model_kind_name(c->kind), c->dim,
+           weft_train_loss_name(c->loss));
+    if (c->loss == WEFT_LOSS_LOGISTIC)
+        printf(" (%zu negatives)", c->negatives);
+    else
+        printf(" (batch %zu)", c->batch);
+    printf(", %s lr %g, %s %g, init %g, at most %zu epochs, seed %llu, %zu threads\n",
+           weft_train_optim_name(c->optim), (double)c->lr, weft_train_reg_name(c->reg),
+           (double)c->reg_weight, (double)c->init_scale, c->epochs,
+           (unsigned long long)c->seed, c->n_threads);
+    fflush(stdout);   /* before the progress lines on stderr */
+}
+
+/* ---- input: the graph and its train / valid / test edges ---- */
+
+/* Which edges play which part, and what the input looked like. */
+struct inputs {
+    weft_graph *g;
+    const weft_triple *train, *valid, *test;
+    size_t n_train, n_valid, n_test;
+    weft_split split;                 /* holdout: owns the arrays */
+    weft_graph_part parts[3];         /* files: train, valid, test; own the arrays */
+    weft_graph_part_overlap overlap[3];   /* [1] valid, [2] test against train */
+    bool is_files;
 };
 
-static void on_epoch(void *ctx, const weft_train_epoch *ep)
+static void inputs_fini(struct inputs *in)
 {
-    struct progress *pr = ctx;
-    pr->elapsed += ep->seconds;
-    json_array_append_new(pr->curve, json_pack("{s:I, s:f, s:f}", "epoch", (json_int_t)ep->epoch,
-                                               "loss", ep->loss, "seconds", ep->seconds));
-    if (pr->is_quiet)
-        return;
-    double eta = ep->seconds * (double)(ep->epochs - ep->epoch);
-    fprintf(stderr, "%sepoch %zu/%zu  loss %.4f  %.0f edges/s  eta %.1fs%s",
-            pr->is_tty ? "\r" : "", ep->epoch, ep->epochs, ep->loss, ep->triples_per_s, eta,
-            pr->is_tty ? "  " : "\n");
-    if (pr->is_tty && ep->epoch == ep->epochs)
-        fputc('\n', stderr);
+    weft_split_fini(&in->split);
+    for (size_t i = 0; i < 3; i++)
+        weft_graph_part_fini(&in->parts[i]);
+    weft_graph_free(in->g);
+}
+
+static const char *const part_names[3] = { "train", "valid", "test" };
+
+static void warn_parts(const struct inputs *in)
+{
+    for (size_t i = 0; i < 3; i++) {
+        const weft_graph_part *p = &in->parts[i];
+        if (p->n_duplicates)
+            fprintf(stderr, "weft: warning: %s: %zu duplicate edges counted once\n",
+                    part_names[i], p->n_duplicates);
+        if (i == 0)
+            continue;
+        const weft_graph_part_overlap *o = &in->overlap[i];
+        /* Common practice: a held-out edge that is also a training edge is a leak (it is
+         * easy to rank and flatters the model). It is kept and counted. */
+        if (o->n_shared)
+            fprintf(stderr, "weft: warning: %zu %s edges are also training edges (a leak: "
+                    "they flatter the model)\n", o->n_shared, part_names[i]);
+        if (o->n_unseen_node)
+            fprintf(stderr, "weft: warning: %zu %s edges touch a node that no training edge "
+                    "touches (its embedding stays as initialised)\n", o->n_unseen_node,
+                    part_names[i]);
+        if (o->n_unseen_relation)
+            fprintf(stderr, "weft: warning: %zu %s edges have a relation that no training "
+                    "edge has\n", o->n_unseen_relation, part_names[i]);
+    }
+}
+
+/* --edges TRAIN [--valid FILE] --test FILE: one graph (names and filter over all three),
+ * three lists kept apart. */
+static weft_err load_files(const struct train_opts *o, struct inputs *in, weft_error *err)
+{
+    weft_err rc = WEFT_OK;
+    for (size_t i = 0; rc == WEFT_OK && i < o->n_edges; i++)
+        rc = weft_graph_load_part(in->g, o->edges[i], &in->parts[0], err);
+    if (rc == WEFT_OK && o->valid)
+        rc = weft_graph_load_part(in->g, o->valid, &in->parts[1], err);
+    if (rc == WEFT_OK)
+        rc = weft_graph_load_part(in->g, o->test, &in->parts[2], err);
+    if (rc == WEFT_OK)
+        rc = weft_graph_finalize(in->g, err);
+    for (size_t i = 0; rc == WEFT_OK && i < 3; i++)
+        rc = weft_graph_part_finalize(in->g, &in->parts[i], err);
+    for (size_t i = 1; rc == WEFT_OK && i < 3; i++)
+        rc = weft_graph_part_compare(in->g, &in->parts[0], &in->parts[i], &in->overlap[i], err);
+    if (rc != WEFT_OK)
+        return rc;
+    if (in->parts[0].n_edges == 0)
+        return weft_error_set(err, WEFT_ERR_INVALID, "no training edges in the --edges files");
+    if (in->parts[2].n_edges == 0)
+        return weft_error_set(err, WEFT_ERR_INVALID, "%s: no test edges", o->test);
+    in->is_files = true;
+    in->train = in->parts[0].edges;
+    in->n_train = in->parts[0].n_edges;
+    in->valid = in->parts[1].edges;
+    in->n_valid = in->parts[1].n_edges;
+    in->test = in->parts[2].edges;
+    in->n_test = in->parts[2].n_edges;
+    return WEFT_OK;
+}
+
+static weft_err load_holdout(const struct train_opts *o, uint64_t seed, struct inputs *in,
+                             weft_error *err)
+{
+    weft_err rc = weft_split_holdout(in->g, o->frac_valid, o->frac_test, seed, &in->split, err);
+    if (rc != WEFT_OK)
+        return rc;
+    if (in->split.n_test == 0)
+        return weft_error_set(err, WEFT_ERR_INVALID,
+                              "no edge can be held out without cutting a node off the training "
+                              "graph: the graph is too small or too sparse to evaluate");
+    in->train = in->split.train;
+    in->n_train = in->split.n_train;
+    in->valid = in->split.valid;
+    in->n_valid = in->split.n_valid;
+    in->test = in->split.test;
+    in->n_test = in->split.n_test;
+    return WEFT_OK;
+}
+
+static weft_err load_graph(const struct train_opts *o, struct inputs *in, weft_error *err)
+{
+    weft_err rc = weft_graph_new(o->is_undirected ? WEFT_GRAPH_UNDIRECTED : 0, &in->g, err);
+    if (rc != WEFT_OK)
+        return rc;
+    if (o->test)
+        return load_files(o, in, err);
+    for (size_t i = 0; rc == WEFT_OK && i < o->n_edges; i++)
+        rc = weft_graph_load_edges(in->g, o->edges[i], err);
+    if (rc == WEFT_OK)
+        rc = weft_graph_finalize(in->g, err);
+    return rc;
 }
 
 static json_t *input_fingerprints(const struct train_opts *o, weft_error *err)
 {
+    const char *paths[MAX_EDGE_FILES + 2], *roles[MAX_EDGE_FILES + 2];
+    size_t n = 0;
+    for (size_t i = 0; i < o->n_edges; i++) {
+        paths[n] = o->edges[i];
+        roles[n++] = "edges";
+    }
+    if (o->valid) {
+        paths[n] = o->valid;
+        roles[n++] = "valid";
+    }
+    if (o->test) {
+        paths[n] = o->test;
+        roles[n++] = "test";
+    }
     json_t *inputs = json_array();
-    for (size_t i = 0; inputs && i < o->n_edges; i++) {
+    for (size_t i = 0; inputs && i < n; i++) {
         char hex[65];
-        if (weft_io_sha256_file(o->edges[i], hex, err) != WEFT_OK) {
+        if (weft_io_sha256_file(paths[i], hex, err) != WEFT_OK ||
+            json_array_append_new(inputs, json_pack("{s:s, s:s, s:s}", "role", roles[i], "path",
+                                                    paths[i], "sha256", hex))) {
             json_decref(inputs);
             return NULL;
         }
-        json_array_append_new(inputs, json_pack("{s:s, s:s, s:s}", "role", "edges", "path",
-                                                o->edges[i], "sha256", hex));
     }
     return inputs;
 }
 
-static void print_metrics(const weft_rank_metrics *model, const weft_rank_metrics *pop)
+/* ---- progress ---- */
+
+struct progress {
+    bool is_tty, is_quiet;
+    json_t *curve;
+    bool is_nomem;             /* a curve entry could not be stored */
+    double elapsed;            /* training and validation seconds so far */
+    double last_mrr;           /* latest validation MRR, NaN before the first */
+};
+
+/* "1h02m", "3m05s", "12s": short enough for a live line. */
+static void format_duration(char *out, size_t cap, double s)
 {
-    printf("\nfiltered ranking on %zu held-out queries  (model | popularity baseline)\n",
-           model->n_queries);
-    printf("  %-10s %10.4f | %10.4f\n", "MRR", model->mrr, pop->mrr);
-    printf("  %-10s %10.4f | %10.4f\n", "Hits@1", model->hits1, pop->hits1);
-    printf("  %-10s %10.4f | %10.4f\n", "Hits@3", model->hits3, pop->hits3);
-    printf("  %-10s %10.4f | %10.4f\n", "Hits@10", model->hits10, pop->hits10);
-    printf("  %-10s %10.2f | %10.2f\n", "mean rank", model->mean_rank, pop->mean_rank);
-    if (model->mrr <= pop->mrr)
-        printf("  warning: the model does not beat the popularity baseline on MRR\n");
+    if (!(s >= 0) || s > 1e7)
+        snprintf(out, cap, "?");
+    else if (s >= 3600)
+        snprintf(out, cap, "%dh%02dm", (int)(s / 3600), (int)(s / 60) % 60);
+    else if (s >= 60)
+        snprintf(out, cap, "%dm%02ds", (int)(s / 60), (int)s % 60);
+    else
+        snprintf(out, cap, "%.0fs", s);
 }
 
-static json_t *build_manifest(const struct train_opts *o, const weft_graph *g,
-                              const weft_split *sp, const weft_rank_metrics *mm,
-                              const weft_rank_metrics *pm, json_t *curve, json_t *inputs)
+static json_t *curve_entry(const weft_train_epoch *ep)
 {
-    const weft_train_link_config *c = &o->cfg;
-    json_t *hyper = json_pack("{s:I, s:I, s:I, s:f, s:f, s:I, s:f, s:I}", "dim",
-                              (json_int_t)c->dim, "epochs", (json_int_t)c->epochs, "negatives",
-                              (json_int_t)c->negatives, "lr", (double)c->lr, "l2", (double)c->l2,
-                              "seed", (json_int_t)c->seed, "holdout", o->holdout, "threads",
-                              (json_int_t)c->n_threads);
+    json_t *e = json_object();
+    if (!e || json_object_set_new(e, "epoch", json_integer((json_int_t)ep->epoch)) ||
+        json_object_set_new(e, "loss", isfinite(ep->loss) ? json_real(ep->loss) : json_null()) ||
+        json_object_set_new(e, "seconds", json_real(ep->seconds)) ||
+        (!isnan(ep->valid_mrr) &&
+         (json_object_set_new(e, "valid_mrr", json_real(ep->valid_mrr)) ||
+          json_object_set_new(e, "eval_seconds", json_real(ep->eval_seconds))))) {
+        json_decref(e);
+        return NULL;
+    }
+    return e;
+}
+
+static void on_epoch(void *ctx, const weft_train_epoch *ep)
+{
+    struct progress *pr = ctx;
+    pr->elapsed += ep->seconds + (isnan(ep->valid_mrr) ? 0.0 : ep->eval_seconds);
+    if (!isnan(ep->valid_mrr))
+        pr->last_mrr = ep->valid_mrr;
+    if (json_array_append_new(pr->curve, curve_entry(ep)))
+        pr->is_nomem = true;
+    if (pr->is_quiet)
+        return;
+    /* Early stopping may end sooner: the ETA is the longest the run can still take. */
+    char eta[16], mrr[64] = "", line[192];
+    format_duration(eta, sizeof eta, pr->elapsed / (double)ep->epoch *
+                                         (double)(ep->epochs - ep->epoch));
+    if (!isnan(pr->last_mrr))
+        snprintf(mrr, sizeof mrr, "  valid MRR %.4f (best @%zu)", pr->last_mrr, ep->best_epoch);
+    snprintf(line, sizeof line, "epoch %zu/%zu  loss %.4f%s  %.0f triples/s  ETA %s", ep->epoch,
+             ep->epochs, ep->loss, mrr, ep->triples_per_s, eta);
+    if (pr->is_tty)   /* one live line, rewritten in place; padding clears a longer one */
+        fprintf(stderr, "\r%-96s", line);
+    else
+        fprintf(stderr, "%s\n", line);
+    fflush(stderr);
+}
+
+/* ---- evaluation, manifest, report, snapshot ---- */
+
+struct results {
+    cmd_eval_split valid, test;
+    bool has_valid;
+    weft_train_result run;
+};
+
+static void results_fini(struct results *r)
+{
+    cmd_eval_split_fini(&r->valid);
+    cmd_eval_split_fini(&r->test);
+}
+
+/* The popularity baseline of a split counts every known edge outside @p drop_a and
+ * @p drop_b: for test, train and valid (what `weft eval` counts: the snapshot's known links
+ * minus the test edges); for valid, train only. */
+static weft_err known_except(const weft_graph *g, const weft_triple *drop_a, size_t n_a,
+                             const weft_triple *drop_b, size_t n_b, weft_triple **out,
+                             size_t *n_out, weft_error *err)
+{
+    weft_triple *both = weft_alloc_array(n_a + n_b, sizeof *both), *drop = NULL;
+    size_t n_drop = 0;
+    if (!both)
+        return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory for held-out edges");
+    if (n_a)
+        memcpy(both, drop_a, n_a * sizeof *both);
+    if (n_b)
+        memcpy(both + n_a, drop_b, n_b * sizeof *both);
+    weft_err rc = weft_graph_unique_triples(both, n_a + n_b, false, &drop, &n_drop, NULL, err);
+    if (rc == WEFT_OK)
+        rc = weft_csr_triples_except(&g->out, drop, n_drop, out, n_out, err);
+    free(both);
+    free(drop);
+    return rc;
+}
+
+static weft_err evaluate_splits(const struct inputs *in, const cmd_eval_input *ev,
+                                struct results *res, weft_error *err)
+{
+    weft_triple *known = NULL;
+    size_t n_known = 0;
+    weft_err rc = WEFT_OK;
+    if (in->n_valid) {
+        rc = known_except(in->g, in->valid, in->n_valid, in->test, in->n_test, &known,
+                          &n_known, err);
+        if (rc == WEFT_OK)
+            rc = cmd_eval_split_run(ev, "valid", in->valid, in->n_valid, known, n_known,
+                                    &res->valid, err);
+        res->has_valid = rc == WEFT_OK;
+        free(known);
+        known = NULL;
+    }
+    if (rc == WEFT_OK)
+        rc = known_except(in->g, in->test, in->n_test, NULL, 0, &known, &n_known, err);
+    if (rc == WEFT_OK)
+        rc = cmd_eval_split_run(ev, "test", in->test, in->n_test, known, n_known, &res->test,
+                                err);
+    free(known);
+    return rc;
+}
+
+/* @p x as the shortest decimal that reads back as the same float (0.1, not 0.100000001). */
+static double float_json(float x)
+{
+    char buf[32];
+    for (int p = 1; p <= 9; p++) {   /* 9 significant digits always read back exactly */
+        snprintf(buf, sizeof buf, "%.*g", p, (double)x);
+        if ((float)strtod(buf, NULL) == x)
+            break;
+    }
+    return strtod(buf, NULL);
+}
+
+static json_t *model_json(const weft_train_link_config *c, const weft_train_result *run)
+{
+    json_t *hyper = json_pack(
+        "{s:I, s:I, s:I, s:I, s:f, s:f, s:f, s:I, s:I, s:I, s:I}", "dim", (json_int_t)c->dim,
+        "epochs", (json_int_t)c->epochs, "negatives", (json_int_t)c->negatives, "batch",
+        (json_int_t)c->batch, "lr", float_json(c->lr), "reg_weight", float_json(c->reg_weight),
+        "init", float_json(c->init_scale), "seed", (json_int_t)c->seed, "threads",
+        (json_int_t)c->n_threads, "eval_every", (json_int_t)c->eval_every, "patience",
+        (json_int_t)c->patience);
+    return json_pack("{s:s, s:s, s:s, s:s, s:o, s:I, s:I, s:b}", "kind",
+                     weft_model_kind_name(c->kind), "loss", weft_train_loss_name(c->loss),
+                     "optimizer", weft_train_optim_name(c->optim), "reg",
+                     weft_train_reg_name(c->reg), "hyper", hyper, "epochs_run",
+                     (json_int_t)run->epochs_run, "best_epoch", (json_int_t)run->best_epoch,
+                     "early_stop", run->is_early_stop);
+}
+
+static json_t *split_json(const struct train_opts *o, const struct inputs *in, uint64_t seed)
+{
+    json_t *s = json_pack("{s:s, s:I, s:I, s:I}", "method", in->is_files ? "files" : "holdout",
+                          "train", (json_int_t)in->n_train, "valid", (json_int_t)in->n_valid,
+                          "test", (json_int_t)in->n_test);
+    if (!s)
+        return NULL;
+    int bad = 0;
+    if (!in->is_files) {
+        bad |= json_object_set_new(s, "seed", json_integer((json_int_t)seed));
+        bad |= json_object_set_new(s, "holdout", json_pack("[f, f]", o->frac_valid,
+                                                            o->frac_test));
+    } else {
+        bad |= json_object_set_new(
+            s, "duplicates",
+            json_pack("{s:I, s:I, s:I}", "train", (json_int_t)in->parts[0].n_duplicates,
+                      "valid", (json_int_t)in->parts[1].n_duplicates, "test",
+                      (json_int_t)in->parts[2].n_duplicates));
+        for (size_t i = 1; i < 3; i++)
+            bad |= json_object_set_new(
+                s, i == 1 ? "valid_overlap" : "test_overlap",
+                json_pack("{s:I, s:I, s:I}", "in_train", (json_int_t)in->overlap[i].n_shared,
+                          "unseen_node", (json_int_t)in->overlap[i].n_unseen_node,
+                          "unseen_relation", (json_int_t)in->overlap[i].n_unseen_relation));
+    }
+    if (bad) {
+        json_decref(s);
+        return NULL;
+    }
+    return s;
+}
+
+static json_t *build_manifest(const struct train_opts *o, const weft_train_link_config *c,
+                              const struct inputs *in, const struct results *res, json_t *curve,
+                              json_t *inputs)
+{
+    const weft_graph *g = in->g;
+    weft_names_view rel = weft_names_as_view(&g->relations);
     json_t *graph = json_pack("{s:I, s:I, s:I, s:b, s:I, s:I}", "nodes", (json_int_t)g->nodes.n,
                               "edges", (json_int_t)g->n_edges, "relations",
                               (json_int_t)g->relations.n, "undirected", o->is_undirected,
                               "duplicates", (json_int_t)g->n_duplicates, "self_loops",
                               (json_int_t)g->n_self_loops);
-    json_t *metrics = json_pack("{s:o, s:{s:o}, s:b, s:{s:I, s:I, s:I}}", "test",
-                                weft_eval_metrics_json(mm), "baselines", "popularity",
-                                weft_eval_metrics_json(pm), "beats_baselines", mm->mrr > pm->mrr,
-                                "split", "train", (json_int_t)sp->n_train, "test",
-                                (json_int_t)sp->n_test, "seed", (json_int_t)c->seed);
-    return json_pack("{s:{s:s, s:s, s:o}, s:o, s:o, s:o, s:O}", "model", "kind",
-                     weft_model_kind_name(c->kind), "loss", "logistic", "hyper", hyper, "graph",
+    json_t *metrics = cmd_eval_metrics_json(&res->test, res->has_valid ? &res->valid : NULL,
+                                            &rel);
+    if (metrics && json_object_set_new(metrics, "split", split_json(o, in, c->seed))) {
+        json_decref(metrics);
+        metrics = NULL;
+    }
+    return json_pack("{s:o, s:o, s:o, s:o, s:O}", "model", model_json(c, &res->run), "graph",
                      graph, "inputs", inputs, "metrics", metrics, "curve", curve);
 }
 
+/* The report: the manifest's metrics with the model and the curve. */
 static weft_err write_report(const char *path, const json_t *manifest, weft_error *err)
 {
-    const json_t *metrics = json_object_get(manifest, "metrics");
-    json_t *report = json_pack("{s:O, s:O, s:o, s:o, s:O, s:O}", "model",
-                               json_object_get(manifest, "model"), "test",
-                               json_object_get(metrics, "test"), "valid", json_object(),
-                               "per_relation", json_object(), "baselines",
-                               json_object_get(metrics, "baselines"), "curve",
-                               json_object_get(manifest, "curve"));
-    if (!report)
+    json_t *report = json_deep_copy(json_object_get(manifest, "metrics"));
+    if (!report || json_object_set(report, "model", json_object_get(manifest, "model")) ||
+        json_object_set(report, "curve", json_object_get(manifest, "curve"))) {
+        json_decref(report);
         return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory writing the report");
-    int rc = json_dump_file(report, path, JSON_INDENT(2) | JSON_REAL_PRECISION(6));
+    }
+    int rc = json_dump_file(report, path, JSON_INDENT(2) | JSON_REAL_PRECISION(10));
     json_decref(report);
-    return rc ? weft_error_set(err, WEFT_ERR_IO, "%s: cannot write report", path) : WEFT_OK;
+    return rc ? weft_error_set(err, WEFT_ERR_IO, "%s: cannot write the report", path) : WEFT_OK;
 }
 
-static weft_err store_snapshot(const struct train_opts *o, const weft_graph *g,
-                               const weft_link_params *params, json_t *manifest,
-                               uint64_t *version, weft_error *err)
+static weft_err store_snapshot(const struct train_opts *o, const weft_train_link_config *c,
+                               const weft_graph *g, const weft_link_params *params,
+                               json_t *manifest, uint64_t *version, weft_error *err)
 {
     weft_store *store = NULL;
     weft_store_writer *w = NULL;
@@ -229,7 +727,7 @@ static weft_err store_snapshot(const struct train_opts *o, const weft_graph *g,
     if (rc == WEFT_OK)
         rc = weft_store_writer_open(store, &w, version, err);
     if (rc == WEFT_OK)
-        rc = weft_snapshot_put_link(w, manifest, g, &model, true, err);
+        rc = weft_snapshot_put_link(w, manifest, g, &model, c->loss == WEFT_LOSS_LOGISTIC, err);
     if (rc == WEFT_OK) {
         rc = weft_store_writer_commit(w, manifest, true, NULL, err);
         w = NULL;   /* commit frees the writer whatever the outcome */
@@ -237,6 +735,64 @@ static weft_err store_snapshot(const struct train_opts *o, const weft_graph *g,
     weft_store_writer_abort(w);
     weft_store_close(store);
     return rc;
+}
+
+static void print_inputs(const struct inputs *in, const weft_train_link_config *c,
+                         bool is_undirected)
+{
+    const weft_graph *g = in->g;
+    printf("graph: %zu nodes, %zu edges, %zu relations (%zu duplicates dropped)%s\n",
+           g->nodes.n, g->n_edges, g->relations.n, g->n_duplicates,
+           is_undirected ? ", undirected: both directions stored" : "");
+    if (in->is_files)
+        printf("split: %zu training, %zu validation, %zu test edges, from files\n", in->n_train,
+               in->n_valid, in->n_test);
+    else
+        printf("split: %zu training, %zu validation, %zu test edges (seed %llu)\n", in->n_train,
+               in->n_valid, in->n_test, (unsigned long long)c->seed);
+}
+
+static void print_run(const weft_train_link_config *c, const weft_train_result *run,
+                      double seconds)
+{
+    printf("trained %s, dim %zu: %zu epochs in %.2fs", weft_model_kind_name(c->kind), c->dim,
+           run->epochs_run, seconds);
+    if (!isnan(run->best_valid_mrr))
+        printf(", kept epoch %zu (validation MRR %.4f)%s", run->best_epoch,
+               run->best_valid_mrr, run->is_early_stop ? ", stopped early" : "");
+    printf("\n");
+}
+
+static weft_err train_and_evaluate(const struct train_opts *o, struct inputs *in,
+                                   weft_train_link_config *cfg, struct results *res,
+                                   weft_link_params *params, struct progress *pr,
+                                   weft_error *err)
+{
+    weft_graph *g = in->g;
+    weft_eval_filter filter = { &g->out, &g->in, g->n_self_loops == 0 };
+    weft_train_validation val = { in->valid, in->n_valid, &filter, !o->is_undirected };
+    weft_err rc = weft_train_link_run(cfg, in->train, in->n_train, g->nodes.n, g->relations.n,
+                                      in->n_valid ? &val : NULL, on_epoch, pr, params,
+                                      &res->run, err);
+    if (pr->is_tty && !o->is_quiet)
+        fputc('\n', stderr);
+    if (rc != WEFT_OK)
+        return rc;
+    if (pr->is_nomem)
+        return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory recording the curve");
+    print_run(cfg, &res->run, pr->elapsed);
+    weft_link_model model = weft_link_params_model(params);
+    cmd_eval_input ev = { g->nodes.n, g->relations.n, !o->is_undirected, &filter, &model,
+                          cfg->n_threads, cfg->seed };
+    openblas_set_num_threads(1);   /* the evaluation threads each run their own sgemm */
+    rc = evaluate_splits(in, &ev, res, err);
+    if (rc != WEFT_OK)
+        return rc;
+    weft_names_view rel = weft_names_as_view(&g->relations);
+    if (res->has_valid)
+        cmd_eval_print(&res->valid, &rel);
+    cmd_eval_print(&res->test, &rel);
+    return WEFT_OK;
 }
 
 int cmd_train_main(int argc, char **argv)
@@ -248,58 +804,36 @@ int cmd_train_main(int argc, char **argv)
 
     weft_error err;
     weft_error_clear(&err);
-    weft_graph *g = NULL;
-    weft_split sp = { 0 };
+    struct inputs in;
+    memset(&in, 0, sizeof in);
+    struct results res;
+    memset(&res, 0, sizeof res);
     weft_link_params params = { 0 };
-    weft_baseline_popularity pop = { 0 };
+    weft_train_link_config cfg;
     json_t *manifest = NULL, *inputs = NULL;
-    struct progress pr = { isatty(STDERR_FILENO), o.is_quiet, json_array(), 0.0 };
-    weft_err rc = weft_graph_new(o.is_undirected ? WEFT_GRAPH_UNDIRECTED : 0, &g, &err);
-    for (size_t i = 0; rc == WEFT_OK && i < o.n_edges; i++)
-        rc = weft_graph_load_edges(g, o.edges[i], &err);
+    struct progress pr = { isatty(STDERR_FILENO), o.is_quiet, json_array(), false, 0.0, NAN };
+    weft_err rc = pr.curve ? WEFT_OK : weft_error_set(&err, WEFT_ERR_NOMEM, "out of memory");
     if (rc == WEFT_OK)
-        rc = weft_graph_finalize(g, &err);
+        rc = load_graph(&o, &in, &err);
     if (rc != WEFT_OK)
         goto done;
-    printf("graph: %zu nodes, %zu edges, %zu relations (%zu duplicates dropped)%s\n",
-           g->nodes.n, g->n_edges, g->relations.n, g->n_duplicates,
-           o.is_undirected ? ", undirected: both directions stored" : "");
+    configure(&o, in.g, &cfg);
+    if (!in.is_files && (rc = load_holdout(&o, cfg.seed, &in, &err)) != WEFT_OK)
+        goto done;
+    print_inputs(&in, &cfg, o.is_undirected);
+    warn_parts(&in);
+    if (!in.is_files && in.n_valid == 0 && o.frac_valid > 0)
+        fprintf(stderr, "weft: warning: no edge could be held out for validation: no early "
+                        "stopping\n");
     if (!(inputs = input_fingerprints(&o, &err))) {
-        rc = err.code ? err.code : WEFT_ERR_NOMEM;
+        rc = err.code ? err.code : weft_error_set(&err, WEFT_ERR_NOMEM, "out of memory");
         goto done;
     }
-    if ((rc = weft_split_holdout(g, 0.0, o.holdout, o.cfg.seed, &sp, &err)) != WEFT_OK)
+    print_config(&cfg);
+    if ((rc = train_and_evaluate(&o, &in, &cfg, &res, &params, &pr, &err)) != WEFT_OK)
         goto done;
-    if (sp.n_test == 0) {
-        rc = weft_error_set(&err, WEFT_ERR_INVALID,
-                            "no edge can be held out without cutting a node off the training "
-                            "graph: the graph is too small or too sparse to evaluate");
-        goto done;
-    }
-    printf("split: %zu training edges, %zu held out for testing (seed %llu)\n", sp.n_train,
-           sp.n_test, (unsigned long long)o.cfg.seed);
 
-    if ((rc = weft_train_link_run(&o.cfg, sp.train, sp.n_train, g->nodes.n, g->relations.n,
-                                  on_epoch, &pr, &params, &err)) != WEFT_OK)
-        goto done;
-    printf("trained %s, dim %zu, %zu epochs in %.2fs\n", weft_model_kind_name(o.cfg.kind),
-           o.cfg.dim, o.cfg.epochs, pr.elapsed);
-
-    weft_eval_filter filter = { &g->out, &g->in, g->n_self_loops == 0 };
-    weft_link_model model = weft_link_params_model(&params);
-    weft_rank_metrics mm, pm;
-    bool both = !o.is_undirected;
-    if ((rc = weft_baseline_popularity_init(&pop, sp.train, sp.n_train, g->nodes.n,
-                                            g->relations.n, &err)) ||
-        (rc = weft_eval_ranking(sp.test, sp.n_test, g->nodes.n, both, &filter,
-                                weft_eval_model_scores, &model, o.cfg.n_threads, &mm, &err)) ||
-        (rc = weft_eval_ranking(sp.test, sp.n_test, g->nodes.n, both, &filter,
-                                weft_baseline_popularity_scores, &pop, o.cfg.n_threads, &pm,
-                                &err)))
-        goto done;
-    print_metrics(&mm, &pm);
-
-    manifest = build_manifest(&o, g, &sp, &mm, &pm, pr.curve, inputs);
+    manifest = build_manifest(&o, &cfg, &in, &res, pr.curve, inputs);
     inputs = NULL;   /* the manifest owns it now */
     if (!manifest) {
         rc = weft_error_set(&err, WEFT_ERR_NOMEM, "out of memory building the manifest");
@@ -308,17 +842,16 @@ int cmd_train_main(int argc, char **argv)
     if (o.report && (rc = write_report(o.report, manifest, &err)) != WEFT_OK)
         goto done;
     uint64_t version = 0;
-    if ((rc = store_snapshot(&o, g, &params, manifest, &version, &err)) != WEFT_OK)
+    if ((rc = store_snapshot(&o, &cfg, in.g, &params, manifest, &version, &err)) != WEFT_OK)
         goto done;
-    printf("snapshot %llu written to %s and promoted: it is live\n",
+    printf("\nsnapshot %llu written to %s and promoted: it is live\n",
            (unsigned long long)version, o.store);
 done:
     json_decref(manifest);
     json_decref(inputs);
     json_decref(pr.curve);
-    weft_baseline_popularity_fini(&pop);
+    results_fini(&res);
     weft_link_params_fini(&params);
-    weft_split_fini(&sp);
-    weft_graph_free(g);
+    inputs_fini(&in);
     return rc == WEFT_OK ? CMD_OK : cmd_report_error(&err);
 }

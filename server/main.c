@@ -13,6 +13,7 @@ struct subcommand {
 static const struct subcommand subcommands[] = {
     { "inspect", cmd_inspect_main, "graph statistics and input problems, before any training" },
     { "train", cmd_train_main, "train a model, evaluate it, store a snapshot and promote it" },
+    { "eval", cmd_eval_main, "evaluate a stored snapshot on a test file beside the baseline" },
     { "serve", cmd_serve_main, "serve predictions from the live snapshot over HTTP" },
 };
 

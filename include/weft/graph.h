@@ -112,6 +112,95 @@ void weft_csr_range(const weft_csr *c, uint32_t v, uint32_t r, uint64_t *first, 
 /** True when @p c holds (v, r, u). O(log degree). */
 bool weft_csr_has(const weft_csr *c, uint32_t v, uint32_t r, uint32_t u);
 
+/**
+ * Unique triples of @p e[0..m) in a new array sorted by (s, r, t): repeats are dropped; when
+ * @p is_undirected, a-b and b-a are one edge and both directions are returned (a self-loop
+ * once), the form weft_graph_finalize() gives a graph's edges.
+ * @param out    on success, the new array (caller frees) of *@p n_out triples
+ * @param n_dup  out, may be NULL: input triples dropped as repeats
+ * @return WEFT_OK, WEFT_ERR_NOMEM. Cost: O(m log m).
+ */
+weft_err weft_graph_unique_triples(const weft_triple *e, size_t m, bool is_undirected,
+                                   weft_triple **out, size_t *n_out, size_t *n_dup,
+                                   weft_error *err);
+
+/**
+ * The edges of some input files kept apart as one part (train, valid or test) while they
+ * are also loaded into a graph, so that one graph holds every name and every known edge and
+ * the parts stay separate lists of its ids. Start from a zeroed struct, add files with
+ * weft_graph_load_part(), then weft_graph_part_finalize(); release with
+ * weft_graph_part_fini().
+ */
+typedef struct weft_graph_part {
+    weft_triple *edges;    /**< as read until finalized; then unique, sorted by (s, r, t), both
+                                directions when the graph is undirected */
+    size_t n_edges;
+    size_t edges_cap;
+    size_t n_input_edges;  /**< data lines read into the part */
+    size_t n_duplicates;   /**< after finalize: input edges that repeat an earlier one of the
+                                same part (a-b and b-a are one edge when undirected) */
+    size_t n_unique;       /**< after finalize: distinct edges (pairs when undirected) */
+    bool is_undirected;    /**< after finalize: copied from the graph */
+    bool is_final;
+} weft_graph_part;
+
+/**
+ * weft_graph_load_edges() of @p path into @p g, also appending the file's edges to @p part.
+ * All or nothing: on any error @p g and @p part are exactly as before the call.
+ * @return the codes of weft_graph_load_edges(); WEFT_ERR_INVALID when @p part is final
+ */
+weft_err weft_graph_load_part(weft_graph *g, const char *path, weft_graph_part *part,
+                              weft_error *err);
+
+/**
+ * Sort @p part, drop and count its repeats and, when final graph @p g is undirected, add the
+ * reverse edges (weft_graph_unique_triples()). Call once, after weft_graph_finalize(g).
+ * @return WEFT_OK, WEFT_ERR_INVALID (graph not final, part already final), WEFT_ERR_NOMEM
+ */
+weft_err weft_graph_part_finalize(const weft_graph *g, weft_graph_part *part, weft_error *err);
+
+/** Release @p part's array and zero it; NULL does nothing. */
+void weft_graph_part_fini(weft_graph_part *part);
+
+/** How a held-out part relates to the training part (common practice: check for leaks). */
+typedef struct weft_graph_part_overlap {
+    size_t n_shared;             /**< edges of held also in train (a leak); pairs when undirected */
+    size_t n_unseen_node;        /**< edges of held with an end no train edge touches */
+    size_t n_unseen_relation;    /**< edges of held whose relation no train edge has */
+} weft_graph_part_overlap;
+
+/**
+ * Compare final parts @p held and @p train of final graph @p g. Undirected edges count once
+ * per pair.
+ * @return WEFT_OK, WEFT_ERR_INVALID (a part not final), WEFT_ERR_NOMEM.
+ * Cost: O(n_nodes + n_relations + train + held * log train).
+ */
+weft_err weft_graph_part_compare(const weft_graph *g, const weft_graph_part *train,
+                                 const weft_graph_part *held, weft_graph_part_overlap *out,
+                                 weft_error *err);
+
+/**
+ * Read the edges of file @p path (the format of weft_graph_load_edges(); a 2-column file
+ * means relation WEFT_GRAPH_DEFAULT_RELATION) as ids of the existing name tables @p nodes and
+ * @p relations, adding no name: for example a test file against a stored snapshot.
+ * @param out  on success, a new array (caller frees) of *@p n_out triples in file order
+ * @return WEFT_OK; WEFT_ERR_NOT_FOUND "path:line: field N (source|relation|target): unknown
+ *         node|relation 'name'"; the WEFT_ERR_IO and WEFT_ERR_PARSE of
+ *         weft_graph_load_edges(); WEFT_ERR_NOMEM
+ */
+weft_err weft_graph_read_triples(const char *path, const weft_names_view *nodes,
+                                 const weft_names_view *relations, weft_triple **out,
+                                 size_t *n_out, weft_error *err);
+
+/**
+ * Every triple of @p c (rows keyed by source, as a graph's out CSR) that is not in @p drop
+ * (@p n_drop triples sorted by (s, r, t), unique), in (s, r, t) order.
+ * @param out  on success, a new array (caller frees) of *@p n_out triples
+ * @return WEFT_OK, WEFT_ERR_NOMEM. Cost: O(edges + n_drop).
+ */
+weft_err weft_csr_triples_except(const weft_csr *c, const weft_triple *drop, size_t n_drop,
+                                 weft_triple **out, size_t *n_out, weft_error *err);
+
 /** Summary statistics of a final graph, as `weft inspect` prints them. */
 typedef struct weft_graph_stats {
     size_t n_nodes, n_edges, n_relations;

@@ -37,11 +37,13 @@ print("ok" if want == have else "want %s\nhave %s" % (want, have))
 PY
 check "inspect figures match scipy" grep -qx ok "$E2E_TMP/inspect.check"
 
-# 2. A good training run writes version 1, live, and a report.
+# 2. A good training run writes version 1, live, and a report. The default holdout keeps a
+#    validation share, so training may stop early and keep its best epoch.
 "$WEFT" train --store "$STORE" --edges "$KARATE" --undirected --dim 16 --epochs 30 --quiet \
     --report "$E2E_TMP/report.json" >"$E2E_TMP/train.out" 2>&1
 check "train exits 0" test $? -eq 0
 check "train prints MRR beside the baseline" grep -q "MRR .*|" "$E2E_TMP/train.out"
+check "train prints AUC-ROC for a one-relation graph" grep -q "AUC-ROC .*|" "$E2E_TMP/train.out"
 check "train says version 1 is live" grep -q "snapshot 1 .*live" "$E2E_TMP/train.out"
 check "catalog holds one snapshot" test "$(catalog_entries)" = 1
 check "report has model, test, valid, baselines, curve" /usr/bin/python3 -c '
@@ -49,15 +51,31 @@ import json, sys
 r = json.load(open(sys.argv[1]))
 assert {"model", "test", "valid", "per_relation", "baselines", "curve"} <= set(r), r.keys()
 assert 0 < r["test"]["mrr"] <= 1 and 0 <= r["test"]["hits@10"] <= 1
-assert "mrr" in r["baselines"]["popularity"]
-assert len(r["curve"]) == 30' "$E2E_TMP/report.json"
+assert 0 <= r["test"]["auc"] <= 1 and 0 < r["test"]["ap"] <= 1
+assert 0 < r["valid"]["mrr"] <= 1
+assert "mrr" in r["baselines"]["popularity"] and "auc" in r["baselines"]["popularity"]
+assert r["split"] == {"method": "holdout", "train": 132, "valid": 8, "test": 16, "seed": 1,
+                      "holdout": [0.05, 0.1]}, r["split"]
+run = r["model"]
+assert len(r["curve"]) == run["epochs_run"] <= 30 and 1 <= run["best_epoch"] <= run["epochs_run"]
+assert all("valid_mrr" in e for e in r["curve"])' "$E2E_TMP/report.json"
+
+# A test share alone: no validation, so every epoch runs.
+"$WEFT" train --store "$STORE" --edges "$KARATE" --undirected --dim 16 --epochs 30 --quiet \
+    --holdout 0.1 --report "$E2E_TMP/report2.json" >"$E2E_TMP/train2.out" 2>&1
+check "--holdout 0.1 trains every epoch without validation" /usr/bin/python3 -c '
+import json, sys
+r = json.load(open(sys.argv[1]))
+assert r["valid"] == {} and r["split"]["valid"] == 0 and r["split"]["test"] == 16, r["split"]
+assert len(r["curve"]) == 30 and not any("valid_mrr" in e for e in r["curve"])' "$E2E_TMP/report2.json"
+check "catalog holds two snapshots" test "$(catalog_entries)" = 2
 
 # 3. gzip input reads the same graph.
 gzip -c "$KARATE" >"$E2E_TMP/edges.tsv.gz"
 "$WEFT" train --store "$STORE" --edges "$E2E_TMP/edges.tsv.gz" --undirected --dim 16 \
     --epochs 5 --quiet >"$E2E_TMP/gz.out" 2>&1
 check "gzip input trains" grep -q "graph: 34 nodes, 156 edges" "$E2E_TMP/gz.out"
-check "catalog holds two snapshots" test "$(catalog_entries)" = 2
+check "catalog holds three snapshots" test "$(catalog_entries)" = 3
 
 # 4. Bad input: error names file and line; the store is left as it was.
 cp "$STORE/data.mdb" "$E2E_TMP/before.mdb"
@@ -78,6 +96,8 @@ bad_case long_name "a\\tb\\n$long\\tc\\n" "long_name.tsv:2: field 1"
 check "missing file: exits 1 naming it" grep -q "absent.tsv: No such file" "$E2E_TMP/absent.out"
 "$WEFT" train --store "$STORE" --edges "$KARATE" --dim 0 >"$E2E_TMP/usage.out" 2>&1
 check "bad option value: exits 2" test $? -eq 2
-check "catalog still holds two snapshots" test "$(catalog_entries)" = 2
+"$WEFT" train --store "$STORE" --edges "$KARATE" --holdout 0.1,x >"$E2E_TMP/usage2.out" 2>&1
+check "bad --holdout: exits 2" test $? -eq 2
+check "catalog still holds three snapshots" test "$(catalog_entries)" = 3
 check "store file unchanged by the failures" cmp -s "$STORE/data.mdb" "$E2E_TMP/before.mdb"
 finish

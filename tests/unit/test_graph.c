@@ -525,3 +525,240 @@ Test(graph, stats_on_hand_worked_graph)
     cr_assert_eq(st.largest_component, 3);
     weft_graph_free(g);
 }
+
+/* ---- parts: train / valid / test files in one graph ---- */
+
+static void load_part(weft_graph *g, const char *path, weft_graph_part *p)
+{
+    weft_error err = { WEFT_OK, "" };
+    cr_assert_eq(weft_graph_load_part(g, path, p, &err), WEFT_OK, "%s", err.msg);
+}
+
+static void finalize_part(const weft_graph *g, weft_graph_part *p)
+{
+    weft_error err = { WEFT_OK, "" };
+    cr_assert_eq(weft_graph_part_finalize(g, p, &err), WEFT_OK, "%s", err.msg);
+}
+
+static bool part_has(const weft_graph *g, const weft_graph_part *p, const char *s,
+                     const char *r, const char *t)
+{
+    weft_names_view rv = weft_names_as_view(&g->relations);
+    uint32_t rid;
+    cr_assert(weft_names_find(&rv, r, strlen(r), &rid));
+    weft_triple want = { node_id(g, s), rid, node_id(g, t) };
+    for (size_t i = 0; i < p->n_edges; i++)
+        if (!memcmp(&p->edges[i], &want, sizeof want))
+            return true;
+    return false;
+}
+
+Test(graph, parts_keep_their_edges_apart_in_one_graph)
+{
+    weft_graph *g = new_graph(0);
+    weft_graph_part train = { 0 }, valid = { 0 }, test = { 0 };
+    load_part(g, fixture_write_text("train.tsv", "a\tr\tb\nb\tr\tc\na\tr\tb\n"), &train);
+    load_part(g, fixture_write_text("valid.tsv", "c\tr\td\n"), &valid);
+    load_part(g, fixture_write_text("test.tsv", "a\tr\tb\nd\tr\te\na\tq\tc\n"), &test);
+    finalize(g);
+    finalize_part(g, &train);
+    finalize_part(g, &valid);
+    finalize_part(g, &test);
+    /* The graph: every name and every distinct edge of the three files. */
+    cr_assert_eq(g->nodes.n, 5);
+    cr_assert_eq(g->relations.n, 2);
+    cr_assert_eq(g->n_edges, 5);   /* a-b, b-c, c-d, d-e, a q c */
+    cr_assert_eq(train.n_input_edges, 3);
+    cr_assert_eq(train.n_duplicates, 1);
+    cr_assert_eq(train.n_edges, 2);
+    cr_assert(part_has(g, &train, "a", "r", "b") && part_has(g, &train, "b", "r", "c"));
+    cr_assert_eq(valid.n_edges, 1);
+    cr_assert(part_has(g, &valid, "c", "r", "d"));
+    cr_assert_eq(test.n_edges, 3);
+    cr_assert(part_has(g, &test, "d", "r", "e") && part_has(g, &test, "a", "q", "c"));
+    for (size_t i = 1; i < test.n_edges; i++)
+        cr_assert(memcmp(&test.edges[i - 1], &test.edges[i], sizeof test.edges[i]) != 0);
+    weft_graph_part_overlap o;
+    cr_assert_eq(weft_graph_part_compare(g, &train, &test, &o, NULL), WEFT_OK);
+    cr_assert_eq(o.n_shared, 1);            /* a r b is also a training edge */
+    cr_assert_eq(o.n_unseen_node, 1);       /* d r e: neither d nor e is in train */
+    cr_assert_eq(o.n_unseen_relation, 1);   /* a q c */
+    cr_assert_eq(weft_graph_part_compare(g, &train, &valid, &o, NULL), WEFT_OK);
+    cr_assert_eq(o.n_shared, 0);
+    cr_assert_eq(o.n_unseen_node, 1);       /* c r d: d */
+    weft_graph_part_fini(&train);
+    weft_graph_part_fini(&valid);
+    weft_graph_part_fini(&test);
+    weft_graph_free(g);
+}
+
+Test(graph, undirected_part_holds_both_directions)
+{
+    weft_graph *g = new_graph(WEFT_GRAPH_UNDIRECTED);
+    weft_graph_part train = { 0 }, test = { 0 };
+    load_part(g, fixture_write_text("train.tsv", "a\tb\nb\ta\nb\tc\nc\tc\n"), &train);
+    load_part(g, fixture_write_text("test.tsv", "c\tb\nd\ta\n"), &test);
+    finalize(g);
+    finalize_part(g, &train);
+    finalize_part(g, &test);
+    cr_assert_eq(train.n_duplicates, 1);   /* b-a repeats a-b */
+    cr_assert_eq(train.n_unique, 3);       /* a-b, b-c, the loop c-c */
+    cr_assert_eq(train.n_edges, 5);        /* both directions of two pairs, the loop once */
+    cr_assert(part_has(g, &train, "b", "link", "a") && part_has(g, &train, "c", "link", "b"));
+    cr_assert_eq(test.n_edges, 4);
+    cr_assert(part_has(g, &test, "a", "link", "d") && part_has(g, &test, "b", "link", "c"));
+    weft_graph_part_overlap o;
+    cr_assert_eq(weft_graph_part_compare(g, &train, &test, &o, NULL), WEFT_OK);
+    cr_assert_eq(o.n_shared, 1, "the pair b-c is shared once, not per direction");
+    cr_assert_eq(o.n_unseen_node, 1);
+    weft_graph_part_fini(&train);
+    weft_graph_part_fini(&test);
+    weft_graph_free(g);
+}
+
+Test(graph, failed_part_load_leaves_graph_and_part_alone)
+{
+    weft_graph *g = new_graph(0);
+    weft_graph_part p = { 0 };
+    load_part(g, fixture_write_text("good.tsv", "a\tb\nb\tc\n"), &p);
+    graph_state before = state_of(g);
+    weft_error err = { WEFT_OK, "" };
+    const char *bad = fixture_write_text("bad.tsv", "fresh1\tfresh2\nx\ty\tz\n");
+    cr_assert_eq(weft_graph_load_part(g, bad, &p, &err), WEFT_ERR_PARSE);
+    graph_state after = state_of(g);
+    cr_assert_eq(after.n_nodes, before.n_nodes);
+    cr_assert_eq(after.n_edges, before.n_edges);
+    cr_assert_eq(p.n_edges, 2);
+    cr_assert_eq(p.n_input_edges, 2);
+    cr_assert_not(has_node(g, "fresh1"));
+    weft_graph_part_fini(&p);
+    weft_graph_free(g);
+}
+
+Test(graph, part_is_finalized_after_its_graph)
+{
+    weft_graph *g = new_graph(0);
+    weft_graph_part p = { 0 };
+    load_part(g, fixture_write_text("e.tsv", "a\tb\n"), &p);
+    cr_assert_eq(weft_graph_part_finalize(g, &p, NULL), WEFT_ERR_INVALID);
+    finalize(g);
+    finalize_part(g, &p);
+    cr_assert_eq(weft_graph_part_finalize(g, &p, NULL), WEFT_ERR_INVALID);
+    weft_graph_part_fini(&p);
+    weft_graph_part_fini(NULL);
+    weft_graph_free(g);
+}
+
+Test(graph, read_triples_resolves_names_without_adding_any)
+{
+    weft_graph *g = new_graph(0);
+    load(g, fixture_write_text("known.tsv", "a\tr\tb\nb\ts\tc\n"));
+    finalize(g);
+    weft_names_view nv = weft_names_as_view(&g->nodes), rv = weft_names_as_view(&g->relations);
+    weft_triple *e = NULL;
+    size_t n = 0;
+    weft_error err = { WEFT_OK, "" };
+    cr_assert_eq(weft_graph_read_triples(fixture_write_text("ok.tsv", "c\tr\ta\n# note\nb\ts\tb\n"),
+                                         &nv, &rv, &e, &n, &err), WEFT_OK, "%s", err.msg);
+    cr_assert_eq(n, 2);
+    cr_assert_eq(e[0].s, node_id(g, "c"));
+    cr_assert_eq(e[0].t, node_id(g, "a"));
+    cr_assert_eq(e[1].s, node_id(g, "b"));
+    cr_assert_eq(e[1].r, 1);
+    free(e);
+
+    char want[600];
+    const char *path = fixture_write_text("unknown.tsv", "a\tr\tb\n\na\tr\tzed\n");
+    cr_assert_eq(weft_graph_read_triples(path, &nv, &rv, &e, &n, &err), WEFT_ERR_NOT_FOUND);
+    snprintf(want, sizeof want, "%s:3: field 3 (target): unknown node 'zed'", path);
+    cr_assert_str_eq(err.msg, want);
+    path = fixture_write_text("rel.tsv", "a\tq\tb\n");
+    cr_assert_eq(weft_graph_read_triples(path, &nv, &rv, &e, &n, &err), WEFT_ERR_NOT_FOUND);
+    snprintf(want, sizeof want, "%s:1: field 2 (relation): unknown relation 'q'", path);
+    cr_assert_str_eq(err.msg, want);
+    path = fixture_write_text("two.tsv", "a\tb\n");   /* relation "link" is not in the graph */
+    cr_assert_eq(weft_graph_read_triples(path, &nv, &rv, &e, &n, &err), WEFT_ERR_NOT_FOUND);
+    cr_assert(strstr(err.msg, "two.tsv:1:") != NULL, "%s", err.msg);
+    path = fixture_write_text("cols.tsv", "a\tr\tb\na\tb\n");
+    cr_assert_eq(weft_graph_read_triples(path, &nv, &rv, &e, &n, &err), WEFT_ERR_PARSE);
+    cr_assert_eq(g->nodes.n, 3, "reading added a name");
+    weft_graph_free(g);
+}
+
+Test(graph, csr_triples_except_leaves_out_exactly_the_dropped)
+{
+    weft_graph *g = new_graph(0);
+    weft_rng rng;
+    weft_rng_seed(&rng, 3);
+    for (int i = 0; i < 300; i++) {
+        char s[8], t[8], r[8];
+        snprintf(s, sizeof s, "n%u", weft_rng_below(&rng, 40));
+        snprintf(t, sizeof t, "n%u", weft_rng_below(&rng, 40));
+        snprintf(r, sizeof r, "r%u", weft_rng_below(&rng, 3));
+        add(g, s, r, t);
+    }
+    finalize(g);
+    /* Drop every third edge, plus one triple the graph does not hold. */
+    weft_triple drop[200];
+    size_t n_drop = 0;
+    for (size_t i = 0; i < g->n_edges; i += 3)
+        drop[n_drop++] = g->edges[i];
+    weft_triple *kept = NULL;
+    size_t n_kept = 0;
+    cr_assert_eq(weft_csr_triples_except(&g->out, drop, n_drop, &kept, &n_kept, NULL), WEFT_OK);
+    cr_assert_eq(n_kept, g->n_edges - n_drop);
+    size_t k = 0;
+    for (size_t i = 0; i < g->n_edges; i++)   /* g->edges is sorted like the CSR walk */
+        if (i % 3 != 0) {
+            cr_assert_eq(memcmp(&kept[k], &g->edges[i], sizeof kept[k]), 0, "edge %zu", i);
+            k++;
+        }
+    free(kept);
+    weft_graph_free(g);
+}
+
+/* Brute force for weft_graph_unique_triples: is (s, r, t) in e[0..m), as given or, when
+ * undirected, reversed? */
+static bool brute_has(const weft_triple *e, size_t m, bool undirected, weft_triple x)
+{
+    for (size_t i = 0; i < m; i++)
+        if (e[i].r == x.r && ((e[i].s == x.s && e[i].t == x.t) ||
+                              (undirected && e[i].s == x.t && e[i].t == x.s)))
+            return true;
+    return false;
+}
+
+Test(graph, unique_triples_match_brute_force)
+{
+    enum { M = 120 };
+    weft_triple e[M];
+    weft_rng rng;
+    weft_rng_seed(&rng, 4);
+    for (size_t i = 0; i < M; i++)
+        e[i] = (weft_triple){ weft_rng_below(&rng, 9), weft_rng_below(&rng, 2),
+                              weft_rng_below(&rng, 9) };
+    for (int undirected = 0; undirected <= 1; undirected++) {
+        weft_triple *u = NULL;
+        size_t n = 0, dup = 0;
+        cr_assert_eq(weft_graph_unique_triples(e, M, undirected, &u, &n, &dup, NULL), WEFT_OK);
+        /* Every output is an input (or its reverse), sorted strictly ascending; every
+         * input's directions are in the output; count distinct inputs by brute force. */
+        size_t distinct = 0;
+        for (size_t i = 0; i < M; i++)
+            distinct += !brute_has(e, i, undirected, e[i]);
+        cr_assert_eq(dup, M - distinct);
+        for (size_t i = 0; i < n; i++) {
+            cr_assert(brute_has(e, M, undirected, u[i]));
+            if (i)
+                cr_assert(((uint64_t)u[i - 1].s << 40 | (uint64_t)u[i - 1].r << 20 | u[i - 1].t) <
+                          ((uint64_t)u[i].s << 40 | (uint64_t)u[i].r << 20 | u[i].t));
+        }
+        for (size_t i = 0; i < M; i++) {
+            cr_assert(brute_has(u, n, false, e[i]));
+            weft_triple rev = { e[i].t, e[i].r, e[i].s };
+            if (undirected)
+                cr_assert(brute_has(u, n, false, rev));
+        }
+        free(u);
+    }
+}
