@@ -178,7 +178,14 @@ weft_err weft_eval_ranks(const weft_triple *test, size_t m, size_t n_nodes, bool
         jobs[t] = (struct rank_job){ test, n_nodes, n_dirs, filter, score, ctx, model, block,
                                      ranks, first, last < n_queries ? last : n_queries, false };
     }
+    /* Each thread runs its own sgemm: OpenBLAS gets one thread per call meanwhile, else the
+     * two layers of threads oversubscribe the cores (docs/dependencies.md, OpenBLAS). */
+    int blas_threads = openblas_get_num_threads();
+    if (n_threads > 1)
+        openblas_set_num_threads(1);
     run_jobs(jobs, sizeof *jobs, n_threads, rank_worker);
+    if (n_threads > 1)
+        openblas_set_num_threads(blas_threads);
     weft_err rc = WEFT_OK;
     for (size_t t = 0; t < n_threads; t++)
         if (jobs[t].is_nomem)
