@@ -64,6 +64,7 @@ demo: deps
 	@BUILD=$(BUILD) PORT=$(DEMO_PORT) deploy/demo.sh
 
 bench: all
+	@deploy/install-deps.sh --bench --check >/dev/null 2>&1 || deploy/install-deps.sh --bench
 	BUILD=$(BUILD) bench/run.sh
 
 # UBSan findings stop the process, so they fail the test that met them.

@@ -1,9 +1,20 @@
 #!/bin/sh
 # Installs, only where missing, every Debian package weft needs to build, run and test.
 # This is the one place that lists them. Safe to run again: it does nothing when all are present.
-#   deploy/install-deps.sh          install what is missing (uses sudo when not root)
-#   deploy/install-deps.sh --check  exit 1 and list what is missing, install nothing
+#   deploy/install-deps.sh                  install what is missing (uses sudo when not root)
+#   deploy/install-deps.sh --check          exit 1 and list what is missing, install nothing
+#   deploy/install-deps.sh --bench [--check]  the same, plus what `make bench` compares against
 set -eu
+
+with_bench=0
+check_only=0
+for arg in "$@"; do
+    case "$arg" in
+        --bench) with_bench=1 ;;
+        --check) check_only=1 ;;
+        *) echo "install-deps: unknown option $arg" >&2; exit 2 ;;
+    esac
+done
 
 PACKAGES="
 build-essential
@@ -27,6 +38,13 @@ python3-yaml
 openapi-specification
 "
 
+# Only for `make bench`: the reference programs of ../shared/bench (PyTorch) and load tools.
+BENCH_PACKAGES="
+python3-torch
+util-linux
+"
+[ "$with_bench" -eq 1 ] && PACKAGES="$PACKAGES $BENCH_PACKAGES"
+
 missing=""
 for p in $PACKAGES; do
     status=$(dpkg-query -W -f='${Status}' "$p" 2>/dev/null || true)
@@ -37,10 +55,10 @@ for p in $PACKAGES; do
 done
 
 if [ -z "$missing" ]; then
-    [ "${1:-}" = "--check" ] || echo "install-deps: all packages present"
+    [ "$check_only" -eq 1 ] || echo "install-deps: all packages present"
     exit 0
 fi
-if [ "${1:-}" = "--check" ]; then
+if [ "$check_only" -eq 1 ]; then
     echo "install-deps: missing:$missing"
     exit 1
 fi
