@@ -9,6 +9,7 @@ BUILD=${BUILD:-build}
 case "$BUILD" in /*) ;; *) BUILD="$TOP/$BUILD" ;; esac
 OUT="$BUILD/bench"
 mkdir -p "$OUT"
+: >"$OUT/raw.jsonl"
 REF_SRC=${REF_TOPK:-$TOP/../shared/bench/ref_topk.c}
 CC=${CC:-cc}
 
@@ -50,4 +51,77 @@ for size in "40943 200" "1000000 128"; do
 done
 echo >>"$report"
 echo "Raw JSON lines: $OUT/raw.jsonl" >>"$report"
+
+# ---- Link prediction on WN18RR (Dettmers et al. 2018): speed and quality ----
+# Reference: ../shared/bench/ref_kge.py (PyTorch DistMult), same data, dimension 200, batch
+# 1000, 128 negatives per side, 2 threads, same environment. BENCH_QUICK=1 skips the
+# 10-minute quality runs.
+WN=${WN18RR:-$TOP/../shared/datasets/wn18rr}
+REF_KGE=${REF_KGE:-$TOP/../shared/bench/ref_kge.py}
+THREADS=${BENCH_THREADS:-2}
+if [ -d "$WN" ]; then
+    $CC -O2 -std=c11 -D_POSIX_C_SOURCE=200809L -I"$TOP/include" "$TOP/bench/bench_kge.c" \
+        "$BUILD/libweft.a" -ljansson -lopenblas -lnettle -lz -lpthread -lm -o "$OUT/bench_kge"
+    $CC -O2 -std=c11 -D_POSIX_C_SOURCE=200809L -I"$TOP/include" "$TOP/bench/bench_sgemm.c" \
+        "$BUILD/libweft.a" -lopenblas -lm -o "$OUT/bench_sgemm"
+    unset OPENBLAS_NUM_THREADS
+    field() {   # field JSON-LINE KEY: a number from a flat or nested JSON line
+        /usr/bin/python3 -c 'import json,sys
+d = json.loads(sys.argv[1].split(" ", 1)[1] if sys.argv[1].startswith("SUMMARY") else sys.argv[1])
+for k in sys.argv[2].split("."): d = d[k]
+print(d)' "$1" "$2"
+    }
+    ratio() { awk -v a="$1" -v b="$2" 'BEGIN { printf "%.2f", a / b }'; }
+    sg=$("$OUT/bench_sgemm" 1000 40943 200 "$THREADS" | tee -a "$OUT/raw.jsonl")
+    sg_gflops=$(field "$sg" gflops)
+    # Speed: the mean of two epochs of weft; 60 to 90 s of the reference, extrapolated per epoch.
+    w1=$("$OUT/bench_kge" "$WN" distmult softmax 100000 "$THREADS" epochs=2 eval_every=1000 | tee -a "$OUT/raw.jsonl" | grep SUMMARY)
+    wns=$("$OUT/bench_kge" "$WN" distmult logistic 100000 "$THREADS" epochs=2 neg=256 eval_every=1000 | tee -a "$OUT/raw.jsonl" | grep SUMMARY)
+    have_torch=0
+    /usr/bin/python3 -c 'import torch' 2>/dev/null && [ -f "$REF_KGE" ] && have_torch=1
+    if [ "$have_torch" -eq 1 ]; then
+        r1=$(/usr/bin/python3 "$REF_KGE" "$WN" 1n 90 "$THREADS" eval_every=100000 | tee -a "$OUT/raw.jsonl" | grep SUMMARY)
+        rns=$(/usr/bin/python3 "$REF_KGE" "$WN" ns 60 "$THREADS" eval_every=100000 | tee -a "$OUT/raw.jsonl" | grep SUMMARY)
+    fi
+    w1_epoch=$(field "$w1" s_per_epoch)
+    wns_epoch=$(field "$wns" s_per_epoch)
+    flops_epoch=$(awk 'BEGIN { printf "%.0f", 2 * 86835 * 3 * 2 * 40943 * 200 }')
+    {
+        echo
+        echo "## Link prediction on WN18RR: time per epoch (DistMult, dim 200, $THREADS threads)"
+        echo
+        echo "| variant | weft s/epoch | reference s/epoch | ratio (goal) | weft triples/s |"
+        echo "|---|---|---|---|---|"
+        if [ "$have_torch" -eq 1 ]; then
+            r1_epoch=$(field "$r1" sec_per_epoch_from_steps)
+            rns_epoch=$(field "$rns" sec_per_epoch_from_steps)
+            echo "| 1-vs-all softmax, batch 1000 | $w1_epoch | $r1_epoch | $(ratio "$w1_epoch" "$r1_epoch") (<= 0.5) | $(awk -v e="$w1_epoch" 'BEGIN{printf "%.0f", 86835/e}') |"
+            echo "| negatives, 256 per positive (reference: 128 per side) | $wns_epoch | $rns_epoch | $(ratio "$wns_epoch" "$rns_epoch") (<= 0.25) | $(awk -v e="$wns_epoch" 'BEGIN{printf "%.0f", 86835/e}') |"
+        else
+            echo "| 1-vs-all softmax, batch 1000 | $w1_epoch | (PyTorch missing) | - | |"
+            echo "| negatives, 256 per positive | $wns_epoch | (PyTorch missing) | - | |"
+        fi
+        echo
+        echo "Dense products of a 1-vs-all epoch: $(awk -v f="$flops_epoch" 'BEGIN{printf "%.2f", f/1e12}') TFLOP;"
+        echo "weft's effective rate $(awk -v f="$flops_epoch" -v e="$w1_epoch" 'BEGIN{printf "%.0f", f/e/1e9}') GFLOP/s against OpenBLAS sgemm alone on the same shapes: $sg_gflops GFLOP/s."
+        echo "Full filtered test evaluation (6,268 queries): weft $(field "$w1" test_eval_s) s$([ "$have_torch" -eq 1 ] && echo ", reference $(field "$r1" test_eval_s) s, ratio $(ratio "$(field "$w1" test_eval_s)" "$(field "$r1" test_eval_s)") (goal <= 0.5)")."
+        echo "Peak memory: weft $(field "$w1" peak_rss_mb) MB$([ "$have_torch" -eq 1 ] && echo ", reference $(field "$r1" maxrss_mb) MB")."
+    } >>"$report"
+    if [ "${BENCH_QUICK:-0}" != 1 ]; then
+        {
+            echo
+            echo "## Link prediction on WN18RR: quality within 10 minutes of training (defaults, $THREADS threads)"
+            echo
+            echo "| model | epochs | test MRR (goal) | Hits@1 | Hits@10 (goal) | popularity MRR |"
+            echo "|---|---|---|---|---|---|"
+        } >>"$report"
+        for kind in distmult complex; do
+            q=$("$OUT/bench_kge" "$WN" "$kind" softmax 600 "$THREADS" | tee -a "$OUT/raw.jsonl" | grep SUMMARY)
+            goal_mrr=0.44
+            [ "$kind" = complex ] && goal_mrr=0.45
+            echo "| $kind | $(field "$q" epochs) | $(field "$q" test_mrr) (>= $goal_mrr) | $(field "$q" test_h1) | $(field "$q" test_h10) (>= 0.50) | $(field "$q" popularity_mrr) |" >>"$report"
+        done
+        echo "Published: DistMult MRR 0.43, Hits@10 0.49 (Dettmers et al. 2018)." >>"$report"
+    fi
+fi
 cat "$report"

@@ -42,7 +42,8 @@ enum {
     GIVEN_SEED = 1u << 11,
     GIVEN_THREADS = 1u << 12,
     GIVEN_EVAL_EVERY = 1u << 13,
-    GIVEN_PATIENCE = 1u << 14
+    GIVEN_PATIENCE = 1u << 14,
+    GIVEN_TIME_BUDGET = 1u << 15
 };
 
 struct train_opts {
@@ -98,6 +99,8 @@ static void print_help(void)
            "  --threads N        training and evaluation threads (default: the online CPUs);\n"
            "                     1 with a fixed seed gives bit-identical snapshots\n"
            "  --eval-every E     epochs between validation evaluations\n"
+           "  --time-budget S    stop after the epoch that brings training time (validation\n"
+           "                     excluded) to S seconds\n"
            "  --patience P       evaluations without a better validation MRR before stopping\n"
            "                     (0: never stop early)\n\n"
            "output:\n"
@@ -201,6 +204,7 @@ static const struct real_flag {
     { "--lr", GIVEN_LR, 1e-9, 100.0 },
     { "--reg-weight", GIVEN_REG_WEIGHT, 0.0, 100.0 },
     { "--init", GIVEN_INIT, 1e-9, 100.0 },
+    { "--time-budget", GIVEN_TIME_BUDGET, 1.0, 1e7 },
 };
 
 static void set_real(struct train_opts *o, unsigned bit, double x)
@@ -210,6 +214,8 @@ static void set_real(struct train_opts *o, unsigned bit, double x)
         c->lr = (float)x;
     else if (bit == GIVEN_REG_WEIGHT)
         c->reg_weight = (float)x;
+    else if (bit == GIVEN_TIME_BUDGET)
+        c->max_seconds = x;
     else
         c->init_scale = (float)x;
     o->given |= bit;
@@ -335,6 +341,7 @@ static void configure(const struct train_opts *o, const weft_graph *g,
     c->n_threads = f & GIVEN_THREADS ? s->n_threads : c->n_threads;
     c->eval_every = f & GIVEN_EVAL_EVERY ? s->eval_every : c->eval_every;
     c->patience = f & GIVEN_PATIENCE ? s->patience : c->patience;
+    c->max_seconds = f & GIVEN_TIME_BUDGET ? s->max_seconds : c->max_seconds;
 }
 
 static void print_config(const weft_train_link_config *c)
@@ -635,18 +642,18 @@ static double float_json(float x)
 static json_t *model_json(const weft_train_link_config *c, const weft_train_result *run)
 {
     json_t *hyper = json_pack(
-        "{s:I, s:I, s:I, s:I, s:f, s:f, s:f, s:I, s:I, s:I, s:I}", "dim", (json_int_t)c->dim,
+        "{s:I, s:I, s:I, s:I, s:f, s:f, s:f, s:I, s:I, s:I, s:I, s:f}", "dim", (json_int_t)c->dim,
         "epochs", (json_int_t)c->epochs, "negatives", (json_int_t)c->negatives, "batch",
         (json_int_t)c->batch, "lr", float_json(c->lr), "reg_weight", float_json(c->reg_weight),
         "init", float_json(c->init_scale), "seed", (json_int_t)c->seed, "threads",
         (json_int_t)c->n_threads, "eval_every", (json_int_t)c->eval_every, "patience",
-        (json_int_t)c->patience);
-    return json_pack("{s:s, s:s, s:s, s:s, s:o, s:I, s:I, s:b}", "kind",
+        (json_int_t)c->patience, "time_budget", c->max_seconds);
+    return json_pack("{s:s, s:s, s:s, s:s, s:o, s:I, s:I, s:b, s:b}", "kind",
                      weft_model_kind_name(c->kind), "loss", weft_train_loss_name(c->loss),
                      "optimizer", weft_train_optim_name(c->optim), "reg",
                      weft_train_reg_name(c->reg), "hyper", hyper, "epochs_run",
                      (json_int_t)run->epochs_run, "best_epoch", (json_int_t)run->best_epoch,
-                     "early_stop", run->is_early_stop);
+                     "early_stop", run->is_early_stop, "out_of_time", run->is_out_of_time);
 }
 
 static json_t *split_json(const struct train_opts *o, const struct inputs *in, uint64_t seed)
@@ -760,7 +767,7 @@ static void print_run(const weft_train_link_config *c, const weft_train_result *
     if (!isnan(run->best_valid_mrr))
         printf(", kept epoch %zu (validation MRR %.4f)%s", run->best_epoch,
                run->best_valid_mrr, run->is_early_stop ? ", stopped early" : "");
-    printf("\n");
+    printf("%s\n", run->is_out_of_time ? " (time budget reached)" : "");
 }
 
 static weft_err train_and_evaluate(const struct train_opts *o, struct inputs *in,
