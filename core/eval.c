@@ -11,25 +11,38 @@
 #include <string.h>
 
 #include "weft/alloc.h"
+#include "weft/gemm.h"
+#include "weft/kernels.h"
 #include "weft/rng.h"
 
 double weft_eval_rank(const float *scores, size_t n, uint32_t target, const uint32_t *filtered,
                       size_t n_filtered, bool has_self, uint32_t self)
 {
     float ts = scores[target];
-    size_t higher = 0, equal = 0, f = 0;
-    /* Candidates ascend, and so does the filter list: walk both together. */
-    for (size_t c = 0; c < n; c++) {
-        while (f < n_filtered && filtered[f] < c)
-            f++;
-        if (c == target || (has_self && c == self) || (f < n_filtered && filtered[f] == c))
-            continue;
-        float x = scores[c];
-        if (isnan(ts) || x > ts)   /* a NaN answer ranks behind every candidate */
-            higher++;
-        else if (x == ts)
-            equal++;
+    bool drop_self = has_self && self != target && self < n;
+    /* Count over every candidate at once (vectorised), then take back the ones that do not
+     * compete: the target itself, self, and each known answer (the filter list is short). */
+    size_t higher = 0, equal = 0, left_out = drop_self;
+    if (!isnan(ts)) {
+        weft_kernel_count_vs(scores, n, ts, &higher, &equal);
+        equal--;   /* the target equals itself */
+        if (drop_self) {
+            higher -= scores[self] > ts;
+            equal -= scores[self] == ts;
+        }
     }
+    for (size_t i = 0; i < n_filtered; i++) {
+        uint32_t c = filtered[i];
+        if (c == target || c >= n || (drop_self && c == self) || (i > 0 && filtered[i - 1] == c))
+            continue;
+        left_out++;
+        if (!isnan(ts)) {
+            higher -= scores[c] > ts;
+            equal -= scores[c] == ts;
+        }
+    }
+    if (isnan(ts))   /* a NaN answer ranks behind every candidate that competes */
+        return (double)(n - left_out);
     return 1.0 + (double)higher + (double)equal / 2.0;
 }
 
@@ -124,8 +137,7 @@ static void rank_in_blocks(struct rank_job *job, float *scores, float *qv)
                              qv + j * d);
         }
         /* scores (b, n) = qv (b, d) . entity (n, d)^T */
-        cblas_sgemm(CblasRowMajor, CblasNoTrans, CblasTrans, (int)b, (int)n, (int)d, 1.0f, qv,
-                    (int)d, m->entity, (int)d, 0.0f, scores, (int)n);
+        weft_gemm(false, true, b, n, d, 1.0f, qv, d, m->entity, d, 0.0f, scores, n, 1);
         for (size_t j = 0; j < b; j++)
             job->ranks[q0 + j] = rank_query(job, scores + j * n, q0 + j);
     }

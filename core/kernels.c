@@ -109,6 +109,33 @@ double weft_kernel_softmax_xent(float *row, size_t n, uint32_t target, float sca
     return loss;
 }
 
+WEFT_CLONES
+void weft_kernel_count_vs(const float *x, size_t n, float t, size_t *higher, size_t *equal)
+{
+    uint32_t hi[LANES] = { 0 }, eq[LANES] = { 0 };
+    size_t h = 0, e = 0, i = 0;
+    while (i < n) {
+        /* 32-bit lane counters, emptied every 2^20 blocks so they cannot overflow */
+        size_t stop = n - i > ((size_t)LANES << 20) ? i + ((size_t)LANES << 20) : n;
+        for (; i + LANES <= stop; i += LANES)
+            for (size_t j = 0; j < LANES; j++) {
+                hi[j] += x[i + j] > t;
+                eq[j] += x[i + j] == t;
+            }
+        for (; i < stop; i++) {
+            h += x[i] > t;
+            e += x[i] == t;
+        }
+        for (size_t j = 0; j < LANES; j++) {
+            h += hi[j];
+            e += eq[j];
+            hi[j] = eq[j] = 0;
+        }
+    }
+    *higher = h;
+    *equal = e;
+}
+
 double weft_kernel_logistic(float x, bool is_positive, float *dx)
 {
     double z = is_positive ? -(double)x : (double)x;   /* loss = softplus(z) */

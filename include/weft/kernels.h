@@ -39,6 +39,12 @@ void weft_kernel_adagrad(float *w, float *acc, const float *g, size_t n, float l
 void weft_kernel_adam(float *w, float *m, float *v, const float *g, size_t n, float lr, float c1,
                       float c2);
 
+/**
+ * Count the entries of @p x[0..n) above @p t into *@p higher and equal to it into *@p equal
+ * (NaN entries count as neither). Vectorised: the inner loop of every rank computation.
+ */
+void weft_kernel_count_vs(const float *x, size_t n, float t, size_t *higher, size_t *equal);
+
 /** exp(x) by the same approximation softmax uses; exposed for tests. */
 float weft_kernel_expf(float x);
 
