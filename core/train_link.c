@@ -667,7 +667,8 @@ weft_err weft_train_link_run(const weft_train_link_config *cfg, const weft_tripl
             res.is_early_stop = true;
             break;
         }
-        if (cfg->max_seconds > 0 && res.train_seconds >= cfg->max_seconds) {
+        /* Stop before an epoch that would end past the budget, judged by this one. */
+        if (cfg->max_seconds > 0 && res.train_seconds + secs > cfg->max_seconds) {
             res.is_out_of_time = epoch < cfg->epochs;
             break;
         }

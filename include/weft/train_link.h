@@ -59,7 +59,8 @@ typedef struct weft_train_link_config {
     uint64_t seed;
     size_t eval_every;   /**< epochs between validation evaluations (>= 1) */
     size_t patience;     /**< evaluations without a better validation MRR before stopping; 0: never */
-    double max_seconds;  /**< stop after the epoch that reaches this much training time; 0: none */
+    double max_seconds;  /**< training time budget: no epoch starts that would end past it, as
+                              judged by the last epoch's time; 0: none */
 } weft_train_link_config;
 
 /**
