@@ -124,9 +124,10 @@ int main(int argc, char **argv)
     weft_train_link_config cfg;
     if (!weft_model_kind_parse(argv[2], &kind))
         die(argv[2], NULL);
-    weft_train_link_defaults(&cfg, kind, g->nodes.n);
-    if (!weft_train_loss_parse(argv[3], &cfg.loss))
+    weft_loss loss;
+    if (!weft_train_loss_parse(argv[3], &loss))
         die(argv[3], NULL);
+    weft_train_link_defaults(&cfg, kind, loss, g->nodes.n);
     cfg.max_seconds = strtod(argv[4], NULL);
     cfg.n_threads = strtoul(argv[5], NULL, 10);
     cfg.epochs = 100000;

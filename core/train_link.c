@@ -1,14 +1,14 @@
 /* Link model training (include/weft/train_link.h).
  *
- * Two ways through the data:
- *  - logistic loss: one positive at a time with its sampled corruptions, lock-free updates
- *    of the rows it touches from several threads (Hogwild, Recht et al. 2011);
- *  - softmax loss: batches of B queries scored against all N nodes with weft_gemm
- *    (S = Q E^T, B x N), row-wise softmax cross-entropy, then dQ = G E and dE = G^T Q, and a
- *    dense optimiser step over every row.
+ * Two ways through the data, both in mini-batches whose dense products go through
+ * weft_gemm on every core:
+ *  - logistic loss: B positives against K tail and K head corruptions drawn once for the
+ *    batch, scored as two B x K products;
+ *  - softmax loss: B queries scored against all N nodes (S = Q E^T, B x N), row-wise softmax
+ *    cross-entropy, then dQ = G E and dE = G^T Q, and a dense optimiser step over every row.
  * Every model is a query vector q(anchor, relation) against candidate rows (model.h), so
- * both paths are model-agnostic. With one thread and a fixed seed a run is reproducible
- * bit for bit. */
+ * both paths are model-agnostic. Gradients of a batch are summed before any row moves, and
+ * rows are stepped in ascending order, so a run is a function of its seed. */
 #include "weft/train_link.h"
 
 #include <cblas.h>
@@ -84,55 +84,58 @@ bool weft_train_reg_parse(const char *s, weft_reg *out)
 /* Scores of one softmax batch, B x N floats, kept at or below this (256 MiB). */
 #define SOFTMAX_MAX_CELLS (64u << 20)
 
-void weft_train_link_defaults(weft_train_link_config *c, weft_link_kind kind, size_t n_entities)
+/* The logistic loss's values: one set for every kind, since Adagrad's per-coordinate scaling
+ * makes the first steps about lr whatever the initial scale (common practice; measured on
+ * tests/data/cora for dot and on WN18RR for DistMult, see DEVELOPERS.md "Defaults"). */
+static void logistic_defaults(weft_train_link_config *c)
+{
+    c->loss = WEFT_LOSS_LOGISTIC;
+    c->optim = WEFT_OPTIM_ADAGRAD;
+    c->batch = 0;   /* automatic: about a hundred batches an epoch, 16 to 1000 edges each */
+    c->negatives = c->kind == WEFT_LINK_DOT ? 32 : 128;
+    c->lr = 0.1f;
+    c->reg = c->kind == WEFT_LINK_DOT ? WEFT_REG_L2 : WEFT_REG_N3;
+    c->reg_weight = c->kind == WEFT_LINK_DOT ? 1e-5f : 1e-3f;
+    c->init_scale = 0.1f;
+    c->patience = c->kind == WEFT_LINK_DOT ? 10 : 3;
+}
+
+/* The softmax loss: 1-vs-all with reciprocal relations, Adagrad, N3 (the recipe of Lacroix,
+ * Usunier & Obozinski 2018 for DistMult and ComplEx). Batch, N3 weight and initial scale are
+ * those of the PyTorch reference in ../shared/bench/ref_kge.py (filtered MRR 0.438 on
+ * WN18RR); the learning rate is ours, measured on WN18RR with DistMult: validation MRR after
+ * 4 epochs 0.417 at lr 0.3 against 0.377 at 0.1, and after 2 epochs 0.357 at 0.3 against
+ * 0.270 at 1.0. The batch shrinks so that its scores stay within SOFTMAX_MAX_CELLS. */
+static void softmax_defaults(weft_train_link_config *c, size_t n_entities)
+{
+    c->loss = WEFT_LOSS_SOFTMAX;
+    c->optim = WEFT_OPTIM_ADAGRAD;
+    c->reg = WEFT_REG_N3;
+    c->lr = 0.3f;
+    c->reg_weight = 0.1f;
+    c->init_scale = 1e-3f;
+    c->patience = 3;
+    size_t b = SOFTMAX_MAX_CELLS / (n_entities ? n_entities : 1);
+    c->batch = b < 1 ? 1 : b < 1000 ? b : 1000;
+}
+
+void weft_train_link_defaults(weft_train_link_config *c, weft_link_kind kind, weft_loss loss,
+                              size_t n_entities)
 {
     memset(c, 0, sizeof *c);
     c->kind = kind;
     c->n_threads = 1;
     c->seed = 1;
     c->eval_every = 1;
-    c->negatives = 5;
-    c->batch = 1000;
-    if (kind == WEFT_LINK_DOT) {
-        /* One relation: the logistic loss with a few negatives and Adagrad is the common
-         * practice for factorising an adjacency matrix; measured on Cora's citation graph
-         * (tests/data/cora), filtered MRR about 0.2 against 0.03 for popularity. */
-        c->loss = WEFT_LOSS_LOGISTIC;
-        c->optim = WEFT_OPTIM_ADAGRAD;
-        c->reg = WEFT_REG_L2;
-        c->dim = 64;
-        c->epochs = 100;
-        c->lr = 0.05f;
-        c->reg_weight = 1e-5f;
-        c->init_scale = 0.2f / sqrtf((float)c->dim);
-        c->patience = 10;
-        return;
-    }
-    /* Typed relations: 1-vs-all softmax with reciprocal relations, Adagrad, N3 (the recipe
-     * of Lacroix, Usunier & Obozinski 2018 for DistMult and ComplEx). Dimension, batch, N3
-     * weight and initial scale are those of the PyTorch reference in ../shared/bench/
-     * ref_kge.py (filtered MRR 0.438 on WN18RR); the learning rate is ours, measured on
-     * WN18RR with DistMult: validation MRR after 4 epochs 0.417 at lr 0.3 against 0.377 at
-     * 0.1, and after 2 epochs 0.357 at 0.3 against 0.270 at 1.0. Past the node count where a
-     * batch of scores would exceed SOFTMAX_MAX_CELLS even at 128 queries, the logistic loss
-     * takes over. */
-    c->optim = WEFT_OPTIM_ADAGRAD;
-    c->reg = WEFT_REG_N3;
-    c->dim = 200;
     c->epochs = 100;
-    c->lr = 0.3f;
-    c->reg_weight = 0.1f;
-    c->init_scale = 1e-3f;
-    c->patience = 3;
-    if (n_entities * 128 <= SOFTMAX_MAX_CELLS) {
-        c->loss = WEFT_LOSS_SOFTMAX;
-        size_t b = SOFTMAX_MAX_CELLS / (n_entities ? n_entities : 1);
-        c->batch = b < 1000 ? b : 1000;
-    } else {
-        c->loss = WEFT_LOSS_LOGISTIC;
-        c->negatives = 64;
-        c->reg_weight = 1e-3f;
-    }
+    c->dim = kind == WEFT_LINK_DOT ? 64 : 200;
+    if (loss == 0)   /* choose: 1-vs-all for typed relations while a batch of scores fits */
+        loss = kind != WEFT_LINK_DOT && n_entities * 128 <= SOFTMAX_MAX_CELLS
+                   ? WEFT_LOSS_SOFTMAX : WEFT_LOSS_LOGISTIC;
+    if (loss == WEFT_LOSS_SOFTMAX)
+        softmax_defaults(c, n_entities);
+    else
+        logistic_defaults(c);
 }
 
 /* ---- parameters and optimiser state ---- */
@@ -262,104 +265,205 @@ static size_t relation_off(const struct trainer *t, uint32_t r)
 
 /* ---- logistic loss with sampled negatives ---- */
 
-struct shard {
-    struct trainer *t;
-    const size_t *order;
-    size_t first, last;
-    weft_rng rng;
-    float *work;       /* 8 * d floats */
-    double loss;
-    bool is_started;
+/* Rows of the parameter slab touched by a batch: their gradients accumulate in one dense
+ * buffer and each gets one optimiser step, in ascending row order (so the result does not
+ * depend on the order positives were met). */
+struct touched {
+    uint32_t *rows;
+    size_t n;
+    bool *mark;      /* per slab row */
 };
 
-/* One positive (s, r, t) and its negatives. Tail corruptions are scored with the tail query
- * q_t = q(s, r), head corruptions with the head query q_h = q(t, r); the gradients of both
- * queries are gathered and pushed back to s, t and r once. A negative row is updated as soon
- * as it is drawn. */
-static double step_logistic(struct shard *sh, const weft_triple *pos)
+static void touch(struct touched *tc, size_t row)
 {
-    struct trainer *t = sh->t;
-    const weft_train_link_config *cfg = t->cfg;
+    if (!tc->mark[row]) {
+        tc->mark[row] = true;
+        tc->rows[tc->n++] = (uint32_t)row;
+    }
+}
+
+static int cmp_u32(const void *a, const void *b)
+{
+    uint32_t x = *(const uint32_t *)a, y = *(const uint32_t *)b;
+    return (x > y) - (x < y);
+}
+
+/* One optimiser step per touched row, then clear their gradients and marks. */
+static void step_touched(struct trainer *t, struct touched *tc, float *grad)
+{
+    qsort(tc->rows, tc->n, sizeof *tc->rows, cmp_u32);
     size_t d = t->d;
-    float *E = t->p.entity;
-    float *qt = sh->work, *qh = qt + d, *gqt = qh + d, *gqh = gqt + d;
-    float *gs = gqh + d, *gt = gs + d, *gr = gt + d, *gc = gr + d;
-    float *es = E + entity_off(t, pos->s), *et = E + entity_off(t, pos->t);
-    float *er = t->p.relation ? t->p.relation + (size_t)pos->r * d : NULL;
-    memset(gqt, 0, 5 * d * sizeof *gqt);   /* gqt, gqh, gs, gt, gr */
-
-    weft_model_query_row(cfg->kind, qt, es, er, d, false);
-    weft_model_query_row(cfg->kind, qh, et, er, d, true);
-    float g;
-    double loss = weft_kernel_logistic(weft_kernel_dot(qt, et, d), true, &g);
-    weft_kernel_axpy(gqt, g, et, d);
-    weft_kernel_axpy(gt, g, qt, d);
-    for (size_t k = 0; k < cfg->negatives; k++) {
-        bool is_head = weft_rng_next(&sh->rng) >> 63;
-        uint32_t c = weft_rng_below(&sh->rng, (uint32_t)t->n_ent);
-        float *ec = E + entity_off(t, c);
-        const float *q = is_head ? qh : qt;
-        float gn;
-        loss += weft_kernel_logistic(weft_kernel_dot(q, ec, d), false, &gn);
-        weft_kernel_axpy(is_head ? gqh : gqt, gn, ec, d);
-        memset(gc, 0, d * sizeof *gc);
-        weft_kernel_axpy(gc, gn, q, d);
-        add_reg_grad(cfg, gc, ec, d, cfg->reg_weight);
-        optim_step(t, entity_off(t, c), gc, d);
+    for (size_t i = 0; i < tc->n; i++) {
+        size_t off = (size_t)tc->rows[i] * d;
+        optim_step(t, off, grad + off, d);
+        memset(grad + off, 0, d * sizeof *grad);
+        tc->mark[tc->rows[i]] = false;
     }
-    weft_model_query_row_backward(cfg->kind, gs, er ? gr : NULL, gqt, es, er, d, false);
-    weft_model_query_row_backward(cfg->kind, gt, er ? gr : NULL, gqh, et, er, d, true);
-    add_reg_grad(cfg, gs, es, d, cfg->reg_weight);
-    add_reg_grad(cfg, gt, et, d, cfg->reg_weight);
-    optim_step(t, entity_off(t, pos->s), gs, d);
-    optim_step(t, entity_off(t, pos->t), gt, d);
-    if (er) {
-        add_reg_grad(cfg, gr, er, d, cfg->reg_weight);
-        optim_step(t, relation_off(t, pos->r), gr, d);
-    }
-    return loss;
+    tc->n = 0;
 }
 
-static void *run_shard(void *arg)
-{
-    struct shard *sh = arg;
-    sh->loss = 0.0;
-    for (size_t i = sh->first; i < sh->last; i++)
-        sh->loss += step_logistic(sh, &sh->t->train[sh->order[i]]);
-    return NULL;
-}
-
+/* The logistic loss over mini-batches with shared negatives (common practice: one draw of
+ * K tail and K head corruptions serves every positive of the batch, so the scores are two
+ * B x K products). Each positive still meets cfg->negatives uniform corruptions, half of
+ * them heads and half tails. */
 struct logistic_state {
-    size_t n_threads;
+    size_t batch, k_tail, k_head;
     size_t *order;
-    struct shard *shards;
-    float *work;
-    pthread_t *tids;
+    float *qt, *qh;        /* batch x d: tail and head queries */
+    float *xt, *xh;        /* batch x k: scores, then their gradients */
+    float *nt, *nh;        /* k x d: the negative rows */
+    uint32_t *it, *ih;     /* k: their ids */
+    float *dqt, *dqh;      /* batch x d */
+    float *dnt, *dnh;      /* k x d */
+    float *grad;           /* n_param */
+    struct touched tc;
 };
 
 static weft_err logistic_init(struct logistic_state *ls, struct trainer *t, weft_error *err)
 {
     memset(ls, 0, sizeof *ls);
-    ls->n_threads = t->cfg->n_threads < t->m ? t->cfg->n_threads : t->m;
+    const weft_train_link_config *cfg = t->cfg;
+    size_t auto_batch = t->m / 100 < 16 ? 16 : t->m / 100 > 1000 ? 1000 : t->m / 100;
+    ls->batch = cfg->batch ? cfg->batch : auto_batch;
+    ls->k_tail = cfg->negatives - cfg->negatives / 2;
+    ls->k_head = cfg->negatives / 2;
+    size_t b = ls->batch, k = ls->k_tail > ls->k_head ? ls->k_tail : ls->k_head, d = t->d;
+    size_t rows = t->n_ent + t->n_rel_rows;
     ls->order = weft_alloc_array(t->m, sizeof *ls->order);
-    ls->shards = weft_calloc_array(ls->n_threads, sizeof *ls->shards);
-    ls->work = weft_alloc_array(ls->n_threads * 8, t->d * sizeof(float));
-    ls->tids = weft_calloc_array(ls->n_threads, sizeof *ls->tids);
-    if (!ls->order || !ls->shards || !ls->work || !ls->tids)
+    ls->qt = weft_alloc_array(b * 2, d * sizeof(float));
+    ls->xt = weft_alloc_array(b * 2, (k ? k : 1) * sizeof(float));
+    ls->nt = weft_alloc_array(k * 2 + 1, d * sizeof(float));
+    ls->it = weft_alloc_array(k * 2 + 1, sizeof(uint32_t));
+    ls->dqt = weft_alloc_array(b * 2, d * sizeof(float));
+    ls->dnt = weft_alloc_array(k * 2 + 1, d * sizeof(float));
+    ls->grad = weft_calloc_array(t->n_param, sizeof(float));
+    ls->tc.rows = weft_alloc_array(rows, sizeof(uint32_t));
+    ls->tc.mark = weft_calloc_array(rows, sizeof(bool));
+    if (!ls->order || !ls->qt || !ls->xt || !ls->nt || !ls->it || !ls->dqt || !ls->dnt ||
+        !ls->grad || !ls->tc.rows || !ls->tc.mark)
         return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory for training state");
+    ls->qh = ls->qt + b * d;
+    ls->xh = ls->xt + b * (k ? k : 1);
+    ls->nh = ls->nt + k * d;
+    ls->ih = ls->it + k;
+    ls->dqh = ls->dqt + b * d;
+    ls->dnh = ls->dnt + k * d;
     for (size_t i = 0; i < t->m; i++)
         ls->order[i] = i;
-    for (size_t k = 0; k < ls->n_threads; k++)
-        weft_rng_seed(&ls->shards[k].rng, weft_rng_next(&t->rng));
     return WEFT_OK;
 }
 
 static void logistic_fini(struct logistic_state *ls)
 {
     free(ls->order);
-    free(ls->shards);
-    free(ls->work);
-    free(ls->tids);
+    free(ls->qt);
+    free(ls->xt);
+    free(ls->nt);
+    free(ls->it);
+    free(ls->dqt);
+    free(ls->dnt);
+    free(ls->grad);
+    free(ls->tc.rows);
+    free(ls->tc.mark);
+}
+
+/* Draw k uniform node ids and gather their rows. */
+static void draw_negatives(struct trainer *t, uint32_t *ids, float *rows, size_t k)
+{
+    for (size_t j = 0; j < k; j++) {
+        ids[j] = weft_rng_below(&t->rng, (uint32_t)t->n_ent);
+        memcpy(rows + j * t->d, t->p.entity + entity_off(t, ids[j]), t->d * sizeof(float));
+    }
+}
+
+/* Scores x (nb x k) of the queries against the negatives become gradients (scale / nb per
+ * term); returns the summed loss. */
+static double negative_terms(float *x, size_t nb, size_t k, float scale)
+{
+    double loss = 0.0;
+    for (size_t i = 0; i < nb * k; i++) {
+        float g;
+        loss += weft_kernel_logistic(x[i], false, &g);
+        x[i] = g * scale;
+    }
+    return loss;
+}
+
+/* Add dN = X^T Q (k x d) into the gradients of the negative rows. */
+static void negative_grads(struct trainer *t, struct logistic_state *ls, const float *x,
+                           const float *q, const uint32_t *ids, float *dn, size_t nb, size_t k)
+{
+    size_t d = t->d;
+    if (k == 0)
+        return;
+    weft_gemm(true, false, k, d, nb, 1.0f, x, k, q, d, 0.0f, dn, d, t->cfg->n_threads);
+    for (size_t j = 0; j < k; j++) {
+        weft_kernel_axpy(ls->grad + entity_off(t, ids[j]), 1.0f, dn + j * d, d);
+        touch(&ls->tc, ids[j]);
+    }
+}
+
+static double logistic_batch(struct trainer *t, struct logistic_state *ls, const size_t *ids,
+                             size_t nb)
+{
+    const weft_train_link_config *cfg = t->cfg;
+    size_t d = t->d, kt = ls->k_tail, kh = ls->k_head, nt = cfg->n_threads;
+    const float *E = t->p.entity;
+    float scale = 1.0f / (float)nb, w = cfg->reg_weight / (float)nb;
+    double loss = 0.0;
+    for (size_t b = 0; b < nb; b++) {
+        const weft_triple *e = &t->train[ids[b]];
+        const float *rel = t->p.relation ? t->p.relation + (size_t)e->r * d : NULL;
+        weft_model_query_row(cfg->kind, ls->qt + b * d, E + entity_off(t, e->s), rel, d, false);
+        weft_model_query_row(cfg->kind, ls->qh + b * d, E + entity_off(t, e->t), rel, d, true);
+    }
+    draw_negatives(t, ls->it, ls->nt, kt);
+    draw_negatives(t, ls->ih, ls->nh, kh);
+    if (kt)
+        weft_gemm(false, true, nb, kt, d, 1.0f, ls->qt, d, ls->nt, d, 0.0f, ls->xt, kt, nt);
+    if (kh)
+        weft_gemm(false, true, nb, kh, d, 1.0f, ls->qh, d, ls->nh, d, 0.0f, ls->xh, kh, nt);
+    /* Negatives are averaged, so their number sets the variance of the estimate and not the
+     * balance between positive and negative evidence (common practice). */
+    float neg_scale = scale / (float)(kt + kh);
+    loss += (negative_terms(ls->xt, nb, kt, neg_scale) + negative_terms(ls->xh, nb, kh, neg_scale))
+            / (double)(kt + kh);
+    /* dQ = X N for both sides, before any row moves */
+    if (kt)
+        weft_gemm(false, false, nb, d, kt, 1.0f, ls->xt, kt, ls->nt, d, 0.0f, ls->dqt, d, nt);
+    else
+        memset(ls->dqt, 0, nb * d * sizeof(float));
+    if (kh)
+        weft_gemm(false, false, nb, d, kh, 1.0f, ls->xh, kh, ls->nh, d, 0.0f, ls->dqh, d, nt);
+    else
+        memset(ls->dqh, 0, nb * d * sizeof(float));
+    negative_grads(t, ls, ls->xt, ls->qt, ls->it, ls->dnt, nb, kt);
+    negative_grads(t, ls, ls->xh, ls->qh, ls->ih, ls->dnh, nb, kh);
+    for (size_t b = 0; b < nb; b++) {
+        const weft_triple *e = &t->train[ids[b]];
+        const float *qt = ls->qt + b * d, *es = E + entity_off(t, e->s), *et = E + entity_off(t, e->t);
+        const float *rel = t->p.relation ? t->p.relation + (size_t)e->r * d : NULL;
+        float g;
+        loss += weft_kernel_logistic(weft_kernel_dot(qt, et, d), true, &g);
+        g *= scale;
+        float *gs = ls->grad + entity_off(t, e->s), *gt = ls->grad + entity_off(t, e->t);
+        float *gr = rel ? ls->grad + relation_off(t, e->r) : NULL;
+        weft_kernel_axpy(ls->dqt + b * d, g, et, d);   /* the positive's share of dq_tail */
+        weft_kernel_axpy(gt, g, qt, d);
+        weft_model_query_row_backward(cfg->kind, gs, gr, ls->dqt + b * d, es, rel, d, false);
+        weft_model_query_row_backward(cfg->kind, gt, gr, ls->dqh + b * d, et, rel, d, true);
+        add_reg_grad(cfg, gs, es, d, w);
+        add_reg_grad(cfg, gt, et, d, w);
+        touch(&ls->tc, e->s);
+        touch(&ls->tc, e->t);
+        if (rel) {
+            add_reg_grad(cfg, gr, rel, d, w);
+            touch(&ls->tc, t->n_ent + e->r);
+        }
+    }
+    t->step++;
+    step_touched(t, &ls->tc, ls->grad);
+    return loss;
 }
 
 static void shuffle(weft_rng *rng, size_t *a, size_t n)
@@ -376,24 +480,10 @@ static void shuffle(weft_rng *rng, size_t *a, size_t n)
 static double logistic_epoch(struct trainer *t, struct logistic_state *ls)
 {
     shuffle(&t->rng, ls->order, t->m);
-    t->step++;
-    for (size_t k = 0; k < ls->n_threads; k++) {
-        struct shard *sh = &ls->shards[k];
-        sh->t = t;
-        sh->order = ls->order;
-        sh->first = t->m * k / ls->n_threads;
-        sh->last = t->m * (k + 1) / ls->n_threads;
-        sh->work = ls->work + k * 8 * t->d;
-        sh->is_started = k > 0 && pthread_create(&ls->tids[k], NULL, run_shard, sh) == 0;
-    }
-    for (size_t k = 0; k < ls->n_threads; k++)
-        if (!ls->shards[k].is_started)
-            run_shard(&ls->shards[k]);
     double loss = 0.0;
-    for (size_t k = 0; k < ls->n_threads; k++) {
-        if (ls->shards[k].is_started)
-            pthread_join(ls->tids[k], NULL);
-        loss += ls->shards[k].loss;
+    for (size_t i = 0; i < t->m; i += ls->batch) {
+        size_t nb = t->m - i < ls->batch ? t->m - i : ls->batch;
+        loss += logistic_batch(t, ls, ls->order + i, nb);
     }
     return loss / (double)t->m;
 }
@@ -576,7 +666,8 @@ static weft_err check_config(const weft_train_link_config *cfg, size_t m, size_t
     if (n_entities > UINT32_MAX || m > SIZE_MAX / 4)
         return weft_error_set(err, WEFT_ERR_LIMIT, "too many nodes or edges");
     if (cfg->dim == 0 || cfg->dim > WEFT_MODEL_MAX_DIM || cfg->epochs == 0 ||
-        cfg->n_threads == 0 || cfg->batch == 0 || cfg->eval_every == 0 || !(cfg->lr > 0) ||
+        cfg->n_threads == 0 || (cfg->batch == 0 && cfg->loss == WEFT_LOSS_SOFTMAX) ||
+        cfg->eval_every == 0 || !(cfg->lr > 0) ||
         !(cfg->reg_weight >= 0) || !(cfg->init_scale > 0) || !(cfg->max_seconds >= 0))
         return weft_error_set(err, WEFT_ERR_INVALID,
                               "dim (1 to %d), epochs, threads, batch, eval interval, lr and init "

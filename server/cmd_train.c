@@ -323,11 +323,10 @@ static void configure(const struct train_opts *o, const weft_graph *g,
     weft_link_kind kind = g->relations.n > 1 ? WEFT_LINK_DISTMULT : WEFT_LINK_DOT;
     if (o->given & GIVEN_MODEL)
         kind = o->set.kind;
-    weft_train_link_defaults(c, kind, g->nodes.n);
-    c->n_threads = cmd_online_cpus();
     const weft_train_link_config *s = &o->set;
-    unsigned f = o->given;   /* each flag given replaces the default */
-    c->loss = f & GIVEN_LOSS ? s->loss : c->loss;
+    unsigned f = o->given;   /* the loss picks its own defaults; each flag given replaces one */
+    weft_train_link_defaults(c, kind, f & GIVEN_LOSS ? s->loss : 0, g->nodes.n);
+    c->n_threads = cmd_online_cpus();
     c->optim = f & GIVEN_OPTIM ? s->optim : c->optim;
     c->reg = f & GIVEN_REG ? s->reg : c->reg;
     c->reg_weight = f & GIVEN_REG_WEIGHT ? s->reg_weight : c->reg_weight;

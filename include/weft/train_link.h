@@ -14,8 +14,8 @@
 
 /** Training losses. */
 typedef enum weft_loss {
-    /** Each positive against cfg->negatives corruptions of its head or tail (a fair coin,
-     *  uniform nodes): softplus(-x_pos) + sum softplus(x_neg). */
+    /** Each positive against N = cfg->negatives uniform corruptions of its head or tail:
+     *  softplus(-x_pos) + (1/N) sum softplus(x_neg). */
     WEFT_LOSS_LOGISTIC = 1,
     /** Softmax cross-entropy of the true tail over all nodes ("1-vs-all", Dettmers et al.
      *  2018; Lacroix et al. 2018), heads through reciprocal relations r + n_relations. */
@@ -50,9 +50,12 @@ typedef struct weft_train_link_config {
     weft_reg reg;
     size_t dim;          /**< embedding size (ComplEx: real + imaginary parts, even) */
     size_t epochs;       /**< most passes over the training edges */
-    size_t negatives;    /**< logistic loss: corruptions per positive */
-    size_t batch;        /**< softmax loss: queries per step */
-    size_t n_threads;    /**< threads; 1 with a fixed seed gives bit-identical parameters */
+    size_t negatives;    /**< logistic loss: corruptions per positive, half heads and half
+                              tails, drawn once per batch and shared by its positives */
+    size_t batch;        /**< queries (softmax) or positives (logistic) per step; logistic: 0
+                              picks about m / 100, within 16 to 1000 */
+    size_t n_threads;    /**< threads; 1 with a fixed seed gives bit-identical parameters (with
+                              weft's own GEMM, any count does: weft_gemm_is_native()) */
     float lr;
     float reg_weight;
     float init_scale;    /**< initial embeddings ~ N(0, init_scale^2) */
@@ -64,11 +67,13 @@ typedef struct weft_train_link_config {
 } weft_train_link_config;
 
 /**
- * Fill @p c with the defaults for @p kind and a graph of @p n_entities nodes: what users get
- * without tuning flags. DistMult and ComplEx: softmax loss (1-vs-all) when the node count
- * allows, Adagrad lr 0.1, N3 0.1... (see train_link.c for the values and their sources).
+ * Fill @p c with the defaults for @p kind, @p loss (0: let weft choose) and a graph of
+ * @p n_entities nodes: what users get without tuning flags. Typed relations get the softmax
+ * loss (1-vs-all) while a batch of scores fits in memory, the logistic loss beyond; dot gets
+ * the logistic loss. The values and their sources are in train_link.c.
  */
-void weft_train_link_defaults(weft_train_link_config *c, weft_link_kind kind, size_t n_entities);
+void weft_train_link_defaults(weft_train_link_config *c, weft_link_kind kind, weft_loss loss,
+                              size_t n_entities);
 
 /** Validation data for early stopping; the filter is every known true triple. */
 typedef struct weft_train_validation {

@@ -48,7 +48,7 @@ Test(train, one_thread_and_a_seed_give_identical_parameters)
 {
     weft_graph *g = two_communities();
     weft_train_link_config cfg;
-    weft_train_link_defaults(&cfg, WEFT_LINK_DOT, g->nodes.n);
+    weft_train_link_defaults(&cfg, WEFT_LINK_DOT, 0, g->nodes.n);
     cfg.dim = 8;
     cfg.epochs = 5;
     weft_link_params a, b, c;
@@ -72,7 +72,7 @@ Test(train, loss_falls_and_communities_separate)
 {
     weft_graph *g = two_communities();
     weft_train_link_config cfg;
-    weft_train_link_defaults(&cfg, WEFT_LINK_DOT, g->nodes.n);
+    weft_train_link_defaults(&cfg, WEFT_LINK_DOT, 0, g->nodes.n);
     cfg.dim = 8;
     cfg.epochs = 60;
     weft_link_params p;
@@ -98,7 +98,7 @@ Test(train, link_view_reads_back_what_was_written, .init = fixture_dir_create,
 {
     weft_graph *g = two_communities();
     weft_train_link_config cfg;
-    weft_train_link_defaults(&cfg, WEFT_LINK_DOT, g->nodes.n);
+    weft_train_link_defaults(&cfg, WEFT_LINK_DOT, 0, g->nodes.n);
     cfg.dim = 4;
     cfg.epochs = 1;
     weft_link_params p;
@@ -179,7 +179,7 @@ ParameterizedTest(struct kind_loss *kl, train, reproducible_per_model_and_loss)
 {
     weft_graph *g = typed_graph();
     weft_train_link_config cfg;
-    weft_train_link_defaults(&cfg, kl->kind, g->nodes.n);
+    weft_train_link_defaults(&cfg, kl->kind, kl->loss, g->nodes.n);
     cfg.loss = kl->loss;
     cfg.optim = kl->optim;
     cfg.dim = 8;
@@ -227,7 +227,7 @@ Test(train, early_stopping_keeps_the_best_epoch)
     weft_eval_filter filter = { &g->out, &g->in, true };
     weft_train_validation val = { valid, 5, &filter, true };
     weft_train_link_config cfg;
-    weft_train_link_defaults(&cfg, WEFT_LINK_DISTMULT, g->nodes.n);
+    weft_train_link_defaults(&cfg, WEFT_LINK_DISTMULT, 0, g->nodes.n);
     cfg.dim = 8;
     cfg.epochs = 40;
     cfg.batch = 16;
