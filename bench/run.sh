@@ -79,7 +79,7 @@ print(d)' "$1" "$2"
     sg_gflops=$(field "$sg" gflops)
     # Speed: the mean of two epochs of weft; 60 to 90 s of the reference, extrapolated per epoch.
     w1=$("$OUT/bench_kge" "$WN" distmult softmax 100000 "$THREADS" epochs=2 eval_every=1000 | tee -a "$OUT/raw.jsonl" | grep SUMMARY)
-    wns=$("$OUT/bench_kge" "$WN" distmult logistic 100000 "$THREADS" epochs=2 neg=256 eval_every=1000 | tee -a "$OUT/raw.jsonl" | grep SUMMARY)
+    wns=$("$OUT/bench_kge" "$WN" distmult logistic 100000 "$THREADS" epochs=2 neg=256 batch=1000 eval_every=1000 | tee -a "$OUT/raw.jsonl" | grep SUMMARY)
     have_torch=0
     /usr/bin/python3 -c 'import torch' 2>/dev/null && [ -f "$REF_KGE" ] && have_torch=1
     if [ "$have_torch" -eq 1 ]; then
