@@ -6,8 +6,10 @@ PORT=$(free_port)
 STORE="$E2E_TMP/demo-store" PORT=$PORT BUILD="$BUILD" sh "$TOP/deploy/demo.sh" \
     >"$E2E_TMP/demo.log" 2>&1 &
 SERVER_PID=$!
+# The demo trains first (seconds; minutes under the sanitizers): wait while it runs.
 i=0
-until curl -fsS "http://127.0.0.1:$PORT/healthz" >/dev/null 2>&1 || [ $i -ge 200 ]; do
+until curl -fsS "http://127.0.0.1:$PORT/healthz" >/dev/null 2>&1 || [ $i -ge 1800 ]; do
+    kill -0 "$SERVER_PID" 2>/dev/null || break
     sleep 0.1
     i=$((i + 1))
 done
