@@ -136,18 +136,17 @@ static weft_err add_record(weft_graph *g, const weft_io_reader *rd, const weft_i
                        rec->len[tf - 1], err);
 }
 
-/* Edges go straight into the graph as lines are read; any failure rolls the graph back to
- * its mark, so the file is added whole or not at all. */
-weft_err weft_graph_load_edges(weft_graph *g, const char *path, weft_error *err)
+/* Open @p path and hand each data line, its column count checked against the first, to
+ * @p fn; stops at the first failure. */
+static weft_err for_each_record(const char *path,
+                                weft_err (*fn)(void *ctx, const weft_io_reader *rd,
+                                               const weft_io_record *rec, weft_error *err),
+                                void *ctx, weft_error *err)
 {
-    weft_err rc = not_final(g, path, err);
-    if (rc != WEFT_OK)
-        return rc;
     weft_io_reader *rd = NULL;
-    rc = weft_io_open(path, &rd, err);
+    weft_err rc = weft_io_open(path, &rd, err);
     if (rc != WEFT_OK)
         return rc;
-    graph_mark mark = graph_mark_take(g);
     size_t n_cols = 0, first_line = 0;
     for (;;) {
         weft_io_record rec;
@@ -157,13 +156,31 @@ weft_err weft_graph_load_edges(weft_graph *g, const char *path, weft_error *err)
             break;
         rc = check_columns(rd, &rec, &n_cols, &first_line, err);
         if (rc == WEFT_OK)
-            rc = add_record(g, rd, &rec, err);
+            rc = fn(ctx, rd, &rec, err);
         if (rc != WEFT_OK)
             break;
     }
+    weft_io_close(rd);
+    return rc;
+}
+
+static weft_err add_record_cb(void *ctx, const weft_io_reader *rd, const weft_io_record *rec,
+                              weft_error *err)
+{
+    return add_record(ctx, rd, rec, err);
+}
+
+/* Edges go straight into the graph as lines are read; any failure rolls the graph back to
+ * its mark, so the file is added whole or not at all. */
+weft_err weft_graph_load_edges(weft_graph *g, const char *path, weft_error *err)
+{
+    weft_err rc = not_final(g, path, err);
+    if (rc != WEFT_OK)
+        return rc;
+    graph_mark mark = graph_mark_take(g);
+    rc = for_each_record(path, add_record_cb, g, err);
     if (rc != WEFT_OK)
         graph_mark_restore(g, &mark);
-    weft_io_close(rd);
     return rc;
 }
 
@@ -450,40 +467,39 @@ static weft_err read_record(const weft_io_reader *rd, const weft_io_record *rec,
     return rc;
 }
 
+struct triple_reader {
+    const char *path;
+    const weft_names_view *nodes, *relations;
+    weft_triple *e;
+    size_t n, cap;
+};
+
+static weft_err read_record_cb(void *ctx, const weft_io_reader *rd, const weft_io_record *rec,
+                               weft_error *err)
+{
+    struct triple_reader *tr = ctx;
+    if (weft_grow_array((void **)&tr->e, &tr->cap, tr->n + 1, sizeof *tr->e))
+        return weft_error_set(err, WEFT_ERR_NOMEM, "%s: out of memory for edges", tr->path);
+    weft_err rc = read_record(rd, rec, tr->nodes, tr->relations, &tr->e[tr->n], err);
+    if (rc == WEFT_OK)
+        tr->n++;
+    return rc;
+}
+
 weft_err weft_graph_read_triples(const char *path, const weft_names_view *nodes,
                                  const weft_names_view *relations, weft_triple **out,
                                  size_t *n_out, weft_error *err)
 {
-    weft_io_reader *rd = NULL;
-    weft_err rc = weft_io_open(path, &rd, err);
-    if (rc != WEFT_OK)
-        return rc;
-    weft_triple *e = NULL;
-    size_t n = 0, cap = 0, n_cols = 0, first_line = 0;
-    for (;;) {
-        weft_io_record rec;
-        bool eof = false;
-        rc = weft_io_next(rd, &rec, &eof, err);
-        if (rc != WEFT_OK || eof)
-            break;
-        rc = check_columns(rd, &rec, &n_cols, &first_line, err);
-        if (rc == WEFT_OK && weft_grow_array((void **)&e, &cap, n + 1, sizeof *e))
-            rc = weft_error_set(err, WEFT_ERR_NOMEM, "%s: out of memory for edges", path);
-        if (rc == WEFT_OK)
-            rc = read_record(rd, &rec, nodes, relations, &e[n], err);
-        if (rc != WEFT_OK)
-            break;
-        n++;
-    }
-    weft_io_close(rd);
+    struct triple_reader tr = { path, nodes, relations, NULL, 0, 0 };
+    weft_err rc = for_each_record(path, read_record_cb, &tr, err);
     if (rc != WEFT_OK) {
-        free(e);
+        free(tr.e);
         return rc;
     }
-    if (!e && !(e = weft_alloc_array(0, sizeof *e)))
+    if (!tr.e && !(tr.e = weft_alloc_array(0, sizeof *tr.e)))
         return weft_error_set(err, WEFT_ERR_NOMEM, "%s: out of memory", path);
-    *out = e;
-    *n_out = n;
+    *out = tr.e;
+    *n_out = tr.n;
     return WEFT_OK;
 }
 
