@@ -15,9 +15,8 @@ EDGES="$TOP/tests/data/cora/edges.tsv"
 echo "== weft inspect $EDGES"
 "$WEFT" inspect --undirected "$EDGES"
 echo
-echo "== weft train (dot model, 64 dimensions)"
-"$WEFT" train --store "$STORE" --edges "$EDGES" --undirected --dim 64 --epochs 100 --lr 0.05 \
-    --seed 7 --quiet
+echo "== weft train (the defaults: a dot model for a one-relation graph)"
+"$WEFT" train --store "$STORE" --edges "$EDGES" --undirected --seed 7 --quiet
 echo
 cat <<EOT
 == weft serve on http://127.0.0.1:$PORT  (Ctrl-C stops it). Try, in another terminal:
