@@ -10,6 +10,7 @@
 
 #include <cblas.h>
 #include <pthread.h>
+#include <stdatomic.h>
 #include <stdint.h>
 #include <stdlib.h>
 #include <string.h>
@@ -20,6 +21,14 @@
 #define WEFT_GEMM_X86 1
 #include <immintrin.h>
 #endif
+
+/* Cleared by weft_gemm_allow_native(false): the one mutable global of this module. */
+static atomic_bool native_allowed = true;
+
+void weft_gemm_allow_native(bool allow)
+{
+    atomic_store(&native_allowed, allow);
+}
 
 enum {
     MR = 12,    /* rows of the register tile */
@@ -190,7 +199,7 @@ static void *gemm_block(void *arg)
 
 bool weft_gemm_is_native(void)
 {
-    return __builtin_cpu_supports("avx512f");
+    return atomic_load(&native_allowed) && __builtin_cpu_supports("avx512f");
 }
 
 #else

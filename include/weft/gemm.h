@@ -26,4 +26,10 @@ void weft_gemm_ref(bool trans_a, bool trans_b, size_t m, size_t n, size_t k, flo
 /** True when weft_gemm uses its own kernel on this CPU (false: it calls cblas_sgemm). */
 bool weft_gemm_is_native(void);
 
+/**
+ * Allow (true, the default) or forbid weft_gemm's own kernel, process-wide; forbidding sends
+ * every product to cblas_sgemm. For tests and side-by-side measurements. Thread-safe.
+ */
+void weft_gemm_allow_native(bool allow);
+
 #endif
