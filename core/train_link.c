@@ -497,7 +497,7 @@ struct softmax_state {
     float *scores;          /* batch x n_ent */
     float *q, *dq;          /* batch x d */
     float *grad;            /* gradient of every parameter, n_param */
-    bool *rel_touched;      /* relation rows used by this batch */
+    struct touched rel;     /* relation rows used by this batch (slab row numbers) */
 };
 
 static weft_err softmax_init(struct softmax_state *ss, struct trainer *t, weft_error *err)
@@ -512,9 +512,11 @@ static weft_err softmax_init(struct softmax_state *ss, struct trainer *t, weft_e
     ss->q = weft_alloc_array(ss->batch, t->d * sizeof(float));
     ss->dq = weft_alloc_array(ss->batch, t->d * sizeof(float));
     ss->grad = weft_calloc_array(t->n_param, sizeof(float));
-    ss->rel_touched = weft_calloc_array(t->n_rel_rows ? t->n_rel_rows : 1, sizeof(bool));
+    size_t rows = t->n_ent + t->n_rel_rows;
+    ss->rel.rows = weft_alloc_array(rows, sizeof(uint32_t));
+    ss->rel.mark = weft_calloc_array(rows, sizeof(bool));
     if (!ss->queries || !ss->order || !ss->scores || !ss->q || !ss->dq || !ss->grad ||
-        !ss->rel_touched)
+        !ss->rel.rows || !ss->rel.mark)
         return weft_error_set(err, WEFT_ERR_NOMEM,
                               "out of memory for 1-vs-all batches of %zu x %zu scores",
                               ss->batch, t->n_ent);
@@ -539,7 +541,8 @@ static void softmax_fini(struct softmax_state *ss)
     free(ss->q);
     free(ss->dq);
     free(ss->grad);
-    free(ss->rel_touched);
+    free(ss->rel.rows);
+    free(ss->rel.mark);
 }
 
 struct rows_job {
@@ -620,18 +623,12 @@ static double softmax_batch(struct trainer *t, struct softmax_state *ss, const s
         add_reg_grad(cfg, ss->grad + entity_off(t, qy->t), E + entity_off(t, qy->t), d, w);
         if (rel) {
             add_reg_grad(cfg, drel, rel, d, w);
-            ss->rel_touched[qy->r] = true;
+            touch(&ss->rel, t->n_ent + qy->r);
         }
     }
     t->step++;
     optim_step(t, 0, ss->grad, n * d);   /* every entity row has a gradient */
-    for (size_t r = 0; r < t->n_rel_rows; r++) {
-        if (!ss->rel_touched[r])
-            continue;
-        optim_step(t, relation_off(t, (uint32_t)r), ss->grad + relation_off(t, (uint32_t)r), d);
-        memset(ss->grad + relation_off(t, (uint32_t)r), 0, d * sizeof(float));
-        ss->rel_touched[r] = false;
-    }
+    step_touched(t, &ss->rel, ss->grad);
     return loss;
 }
 
