@@ -431,29 +431,15 @@ weft_err weft_graph_part_compare(const weft_graph *g, const weft_graph_part *tra
     return WEFT_OK;
 }
 
-/* Id of name field @p f of @p rec in @p names, or WEFT_ERR_NOT_FOUND naming file and line. */
-static weft_err find_field(const weft_io_reader *rd, const weft_io_record *rec, size_t f,
-                           const char *what, const char *kind, const weft_names_view *names,
-                           uint32_t *id, weft_error *err)
-{
-    weft_err rc = weft_io_check_name(rd, rec, f, what, err);
-    if (rc != WEFT_OK)
-        return rc;
-    if (weft_names_find(names, rec->field[f - 1], rec->len[f - 1], id))
-        return WEFT_OK;
-    return weft_error_set(err, WEFT_ERR_NOT_FOUND, "%s:%zu: field %zu (%s): unknown %s '%.80s'",
-                          weft_io_path(rd), rec->lineno, f, what, kind, rec->field[f - 1]);
-}
-
 static weft_err read_record(const weft_io_reader *rd, const weft_io_record *rec,
                             const weft_names_view *nodes, const weft_names_view *relations,
                             weft_triple *out, weft_error *err)
 {
     size_t tf = rec->n_fields;   /* the target is the last field */
     weft_triple e;
-    weft_err rc = find_field(rd, rec, 1, "source", "node", nodes, &e.s, err);
+    weft_err rc = weft_io_find_name(rd, rec, 1, "source", "node", nodes, &e.s, err);
     if (rc == WEFT_OK && tf == 3)
-        rc = find_field(rd, rec, 2, "relation", "relation", relations, &e.r, err);
+        rc = weft_io_find_name(rd, rec, 2, "relation", "relation", relations, &e.r, err);
     if (rc == WEFT_OK && tf == 2 &&
         !weft_names_find(relations, WEFT_GRAPH_DEFAULT_RELATION,
                          strlen(WEFT_GRAPH_DEFAULT_RELATION), &e.r))
@@ -461,7 +447,7 @@ static weft_err read_record(const weft_io_reader *rd, const weft_io_record *rec,
                             "%s:%zu: a 2-column line has relation '%s', which is unknown",
                             weft_io_path(rd), rec->lineno, WEFT_GRAPH_DEFAULT_RELATION);
     if (rc == WEFT_OK)
-        rc = find_field(rd, rec, tf, "target", "node", nodes, &e.t, err);
+        rc = weft_io_find_name(rd, rec, tf, "target", "node", nodes, &e.t, err);
     if (rc == WEFT_OK)
         *out = e;
     return rc;

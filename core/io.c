@@ -425,3 +425,16 @@ weft_err weft_io_sha256_file(const char *path, char hex[65], weft_error *err)
     hex[64] = '\0';
     return WEFT_OK;
 }
+
+weft_err weft_io_find_name(const weft_io_reader *rd, const weft_io_record *rec, size_t f,
+                           const char *what, const char *kind, const weft_names_view *names,
+                           uint32_t *id, weft_error *err)
+{
+    weft_err rc = weft_io_check_name(rd, rec, f, what, err);
+    if (rc != WEFT_OK)
+        return rc;
+    if (weft_names_find(names, rec->field[f - 1], rec->len[f - 1], id))
+        return WEFT_OK;
+    return weft_error_set(err, WEFT_ERR_NOT_FOUND, "%s:%zu: field %zu (%s): unknown %s '%.80s'",
+                          weft_io_path(rd), rec->lineno, f, what, kind, rec->field[f - 1]);
+}

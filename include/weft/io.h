@@ -6,6 +6,7 @@
 #include <stddef.h>
 
 #include "weft/error.h"
+#include "weft/names.h"
 
 /** Longest node, relation, class or type name accepted, in bytes (UTF-8). */
 #define WEFT_IO_MAX_NAME 1024
@@ -82,5 +83,16 @@ bool weft_io_utf8_valid(const char *s, size_t len);
  * @return WEFT_OK, WEFT_ERR_IO
  */
 weft_err weft_io_sha256_file(const char *path, char hex[65], weft_error *err);
+
+/**
+ * Id in @p names of name field @p f (1-based) of @p rec, checked with weft_io_check_name().
+ * @param what  the field's role in messages ("source", "node")
+ * @param kind  what the table holds ("node", "relation")
+ * @return WEFT_OK; WEFT_ERR_NOT_FOUND "path:line: field F (what): unknown kind 'name'";
+ *         WEFT_ERR_PARSE from weft_io_check_name()
+ */
+weft_err weft_io_find_name(const weft_io_reader *rd, const weft_io_record *rec, size_t f,
+                           const char *what, const char *kind, const weft_names_view *names,
+                           uint32_t *id, weft_error *err);
 
 #endif
