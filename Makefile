@@ -28,7 +28,7 @@ $(BUILD)/%.o: %.c
 	$(CC) $(CPPFLAGS) $(WARN) $(CFLAGS) -c $< -o $@
 
 # The dense training loops need the vectoriser's full cost model (include/weft/kernels.h).
-$(BUILD)/core/kernels.o $(BUILD)/core/gemm.o: CFLAGS += -O3
+$(BUILD)/core/kernels.o $(BUILD)/core/gemm.o $(BUILD)/core/sparse.o $(BUILD)/core/model_gcn.o: CFLAGS += -O3
 
 $(BUILD)/libweft.a: $(CORE_OBJ)
 	@mkdir -p $(dir $@)

@@ -36,4 +36,12 @@ void weft_store_version_key(uint64_t version, unsigned char out[8]);
 /** Blob key: 8-byte big-endian version then the name's bytes; @return key length. */
 size_t weft_store_blob_key(uint64_t version, const char *name, unsigned char *out, size_t cap);
 
+/* Marks a hot loop to be compiled once per instruction set (AVX-512, AVX2, baseline) and
+ * picked at load time; the file must be built with -O3 for the vectoriser (see Makefile). */
+#if defined(__x86_64__) && defined(__GNUC__) && !defined(__clang__) && !defined(__SANITIZE_ADDRESS__)
+#define WEFT_CLONES __attribute__((target_clones("avx512f", "avx2", "default")))
+#else
+#define WEFT_CLONES
+#endif
+
 #endif

@@ -6,11 +6,8 @@
 #include <math.h>
 #include <string.h>
 
-#if defined(__x86_64__) && defined(__GNUC__) && !defined(__clang__) && !defined(__SANITIZE_ADDRESS__)
-#define WEFT_CLONES __attribute__((target_clones("avx512f", "avx2", "default")))
-#else
-#define WEFT_CLONES
-#endif
+#include "internal.h"
+
 
 enum { LANES = 16 };
 

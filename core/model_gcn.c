@@ -180,6 +180,20 @@ void weft_gcn_cache_fini(weft_gcn_cache *c)
     memset(c, 0, sizeof *c);
 }
 
+/* Inverted dropout scales: keep[i] = 0 with probability p, else 1/(1-p). Each 64-bit draw
+ * gives four 16-bit uniforms, so p is used to within 2^-16. */
+static void dropout_scales(float *keep, size_t n, float p, weft_rng *rng)
+{
+    uint32_t cut = (uint32_t)((double)p * 65536.0 + 0.5);
+    float scale = 1.0f / (1.0f - p);
+    size_t i = 0;
+    while (i < n) {
+        uint64_t bits = weft_rng_next(rng);
+        for (int q = 0; q < 4 && i < n; q++, i++, bits >>= 16)
+            keep[i] = (uint32_t)(bits & 0xffff) >= cut ? scale : 0.0f;
+    }
+}
+
 /* Inverted dropout of n entries: keep[i] is 0 or 1/(1-p), out[i] = src[i] * keep[i]. */
 static void dropout_dense(float *out, float *keep, const float *src, size_t n, float p,
                           weft_rng *rng)
@@ -190,11 +204,9 @@ static void dropout_dense(float *out, float *keep, const float *src, size_t n, f
             keep[i] = 1.0f;
         return;
     }
-    float scale = 1.0f / (1.0f - p);
-    for (size_t i = 0; i < n; i++) {
-        keep[i] = weft_rng_float(rng) >= p ? scale : 0.0f;
+    dropout_scales(keep, n, p, rng);
+    for (size_t i = 0; i < n; i++)
         out[i] = src[i] * keep[i];
-    }
 }
 
 static void activate(float *h, size_t n, weft_gcn_act act)
@@ -240,9 +252,9 @@ void weft_gcn_forward(weft_gcn_cache *c, const weft_gcn_shape *s, const weft_gcn
             const weft_sparse *x = in->x;
             size_t nnz = weft_sparse_nnz(x);
             if (rng && dropout > 0.0f) {
-                float scale = 1.0f / (1.0f - dropout);
+                dropout_scales(c->x_val, nnz, dropout, rng);
                 for (size_t k = 0; k < nnz; k++)
-                    c->x_val[k] = weft_rng_float(rng) >= dropout ? x->val[k] * scale : 0.0f;
+                    c->x_val[k] *= x->val[k];
             } else {
                 memcpy(c->x_val, x->val, nnz * sizeof *c->x_val);
             }

@@ -14,6 +14,8 @@
 #include "weft/graph.h"
 #include "weft/model.h"
 #include "weft/names.h"
+#include "weft/sparse.h"
+#include "weft/train_gcn.h"
 #include "weft/store.h"
 
 /** One blob as stored: data points into the map, read-only. */
@@ -96,5 +98,48 @@ weft_err weft_snapshot_link_view(const weft_snapshot *snap, weft_link_view *out,
  */
 weft_err weft_snapshot_put_link(weft_store_writer *w, json_t *manifest, const weft_graph *g,
                                 const weft_link_model *m, bool is_probability, weft_error *err);
+
+/**
+ * The label model of a snapshot (a GCN over the node table) as read-only views into the map,
+ * valid until the snapshot's last release: what serving predictions and explanations needs.
+ */
+typedef struct weft_label_view {
+    size_t n_nodes, n_classes;
+    weft_names_view nodes;
+    weft_names_view classes;
+    const float *prob;        /**< (n_nodes, n_classes): class probabilities of every node */
+    const float *message;     /**< (n_nodes, n_classes): U of the last layer (weft_gcn_attribute) */
+    const float *bias;        /**< (n_classes), or NULL without bias */
+    const uint32_t *observed; /**< (n_nodes): the label given in training input, or
+                                   WEFT_LABEL_VIEW_NONE */
+    const uint8_t *part;      /**< (n_nodes): weft_label_part of that label in training */
+    const uint64_t *adj_off;  /**< (n_nodes + 1): rows of the normalised adjacency A' */
+    const uint32_t *adj_col;  /**< (adj_off[n_nodes]) */
+    const float *adj_val;     /**< (adj_off[n_nodes]) */
+} weft_label_view;
+
+/** observed[] value of an unlabelled node. */
+#define WEFT_LABEL_VIEW_NONE UINT32_MAX
+
+/**
+ * Fill @p out from @p snap's label blobs, checking every shape against the others and the
+ * name tables, and the adjacency offsets and columns against their bounds.
+ * @return WEFT_OK, WEFT_ERR_NOT_FOUND (no label model), WEFT_ERR_CORRUPT
+ */
+weft_err weft_snapshot_label_view(const weft_snapshot *snap, weft_label_view *out,
+                                  weft_error *err);
+
+/**
+ * Write a label model into snapshot writer @p w: the node table of final graph @p g (unless a
+ * link model was already put into this writer, which wrote it), the class names @p classes,
+ * the probabilities and messages of @p t, its last bias, the normalised adjacency @p adj, and
+ * the observed labels @p y (-1: none) with their training part @p part. Sets @p manifest's
+ * "labels" object: kind "gcn", classes, layers, widths, activation, normalisation, bias.
+ * @return WEFT_OK, WEFT_ERR_INVALID (shapes do not match), the writer's errors
+ */
+weft_err weft_snapshot_put_labels(weft_store_writer *w, json_t *manifest, const weft_graph *g,
+                                  const weft_names *classes, const weft_gcn_trained *t,
+                                  weft_sparse_norm norm, const weft_sparse *adj,
+                                  const int32_t *y, const uint8_t *part, weft_error *err);
 
 #endif
