@@ -3,6 +3,7 @@
  * the last reference is released; blobs were checked against the manifest and their CRC-32. */
 #include "internal.h"
 
+#include <math.h>
 #include <stdatomic.h>
 #include <stdlib.h>
 #include <string.h>
@@ -11,6 +12,7 @@
 #include <zlib.h>
 
 #include "weft/alloc.h"
+#include "weft/labels.h"
 #include "weft/snapshot.h"
 
 struct named_blob {
@@ -386,6 +388,208 @@ weft_err weft_snapshot_put_link(weft_store_writer *w, json_t *manifest, const we
                              "dim", (json_int_t)m->dim, "self_loops", g->n_self_loops > 0,
                              "probability", is_probability, "reciprocal", m->has_reciprocal);
     if (!link || json_object_set_new(manifest, "link", link))
+        return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory writing the manifest");
+    return WEFT_OK;
+}
+
+/* ---- the label model ---- */
+
+/* Every value of @p x[0..n) finite (and, with @p is_prob, in [0, 1]). */
+static bool all_finite(const float *x, size_t n, bool is_prob)
+{
+    for (size_t i = 0; i < n; i++)
+        if (!isfinite(x[i]) || (is_prob && (x[i] < 0.0f || x[i] > 1.0f)))
+            return false;
+    return true;
+}
+
+/* A 2-dimensional f32 blob of (rows, cols) with finite values. */
+static weft_err need_matrix(const weft_snapshot *snap, const char *name, size_t rows, size_t cols,
+                            bool is_prob, const float **out, weft_error *err)
+{
+    weft_blob b;
+    weft_err e = need_blob(snap, name, WEFT_DTYPE_F32, 2, &b, err);
+    if (e)
+        return e;
+    if (b.shape[0] != rows || b.shape[1] != cols)
+        return fail_blob(err, snap->version, name, "shape disagrees with the node or class table");
+    if (!all_finite(b.data, rows * cols, is_prob))
+        return fail_blob(err, snap->version, name,
+                         is_prob ? "a value is not a probability" : "a value is not finite");
+    *out = b.data;
+    return WEFT_OK;
+}
+
+/* A 1-dimensional blob of @p n values of @p dtype. */
+static weft_err need_vector(const weft_snapshot *snap, const char *name, weft_dtype dtype,
+                            size_t n, const void **out, weft_error *err)
+{
+    weft_blob b;
+    weft_err e = need_blob(snap, name, dtype, 1, &b, err);
+    if (e)
+        return e;
+    if (b.shape[0] != n)
+        return fail_blob(err, snap->version, name, "length disagrees with the node or class table");
+    *out = b.data;
+    return WEFT_OK;
+}
+
+/* The normalised adjacency A' (n x n) as rows label.adj.{off,col,val}. */
+static weft_err adjacency_view(const weft_snapshot *snap, size_t n, weft_label_view *v,
+                               weft_error *err)
+{
+    weft_blob off, col, val;
+    weft_err e;
+    if ((e = need_part(snap, "label.adj", "off", WEFT_DTYPE_U64, &off, err)) ||
+        (e = need_part(snap, "label.adj", "col", WEFT_DTYPE_U32, &col, err)) ||
+        (e = need_part(snap, "label.adj", "val", WEFT_DTYPE_F32, &val, err)))
+        return e;
+    const uint64_t *o = off.data;
+    const uint32_t *c = col.data;
+    if (off.shape[0] != n + 1 || col.shape[0] != val.shape[0] || o[0] != 0 ||
+        o[n] != col.shape[0])
+        return fail_blob(err, snap->version, "label.adj", "offsets disagree with the node table");
+    for (size_t i = 0; i < n; i++)
+        if (o[i] > o[i + 1])
+            return fail_blob(err, snap->version, "label.adj", "offsets not rising");
+    for (size_t k = 0; k < col.shape[0]; k++)
+        if (c[k] >= n)
+            return fail_blob(err, snap->version, "label.adj", "column out of range");
+    if (!all_finite(val.data, val.shape[0], false))
+        return fail_blob(err, snap->version, "label.adj.val", "a value is not finite");
+    v->adj_off = o;
+    v->adj_col = c;
+    v->adj_val = val.data;
+    return WEFT_OK;
+}
+
+weft_err weft_snapshot_label_view(const weft_snapshot *snap, weft_label_view *out,
+                                  weft_error *err)
+{
+    const json_t *labels = json_object_get(snap->manifest, "labels");
+    if (!json_is_object(labels))
+        return weft_error_set(err, WEFT_ERR_NOT_FOUND, "version %llu holds no label model",
+                              (unsigned long long)snap->version);
+    const char *kind = json_string_value(json_object_get(labels, "kind"));
+    if (!kind || strcmp(kind, "gcn") != 0)
+        return weft_error_set(err, WEFT_ERR_CORRUPT, "version %llu: unknown label model '%s'",
+                              (unsigned long long)snap->version, kind ? kind : "");
+    weft_label_view v;
+    memset(&v, 0, sizeof v);
+    weft_err e;
+    if ((e = names_view(snap, "nodes", &v.nodes, err)) ||
+        (e = names_view(snap, "classes", &v.classes, err)))
+        return e;
+    v.n_nodes = v.nodes.n;
+    v.n_classes = v.classes.n;
+    const json_t *jclasses = json_object_get(labels, "classes");
+    if (v.n_classes == 0 || !json_is_integer(jclasses) ||
+        json_integer_value(jclasses) != (json_int_t)v.n_classes)
+        return fail_blob(err, snap->version, "classes", "class count disagrees with the manifest");
+    const json_t *dims = json_object_get(labels, "dims");
+    size_t n_dims = json_array_size(dims);
+    if (n_dims < 2 || n_dims > WEFT_GCN_MAX_LAYERS + 1 ||
+        json_integer_value(json_object_get(labels, "layers")) != (json_int_t)(n_dims - 1) ||
+        json_integer_value(json_array_get(dims, n_dims - 1)) != (json_int_t)v.n_classes)
+        return weft_error_set(err, WEFT_ERR_CORRUPT,
+                              "version %llu: the label model's layers disagree with its classes",
+                              (unsigned long long)snap->version);
+    const void *p;
+    if ((e = need_matrix(snap, "label.prob", v.n_nodes, v.n_classes, true, &v.prob, err)) ||
+        (e = need_matrix(snap, "label.message", v.n_nodes, v.n_classes, false, &v.message, err)))
+        return e;
+    bool has_bias = json_is_true(json_object_get(labels, "bias"));
+    weft_blob unused;
+    if (has_bias) {
+        if ((e = need_vector(snap, "label.bias", WEFT_DTYPE_F32, v.n_classes, &p, err)))
+            return e;
+        v.bias = p;
+        if (!all_finite(v.bias, v.n_classes, false))
+            return fail_blob(err, snap->version, "label.bias", "a value is not finite");
+    } else if (weft_snapshot_blob(snap, "label.bias", &unused)) {
+        return fail_blob(err, snap->version, "label.bias", "stored but the manifest says no bias");
+    }
+    if ((e = need_vector(snap, "label.observed", WEFT_DTYPE_U32, v.n_nodes, &p, err)))
+        return e;
+    v.observed = p;
+    if ((e = need_vector(snap, "label.part", WEFT_DTYPE_U8, v.n_nodes, &p, err)))
+        return e;
+    v.part = p;
+    for (size_t i = 0; i < v.n_nodes; i++) {
+        if (v.observed[i] >= v.n_classes && v.observed[i] != WEFT_LABEL_VIEW_NONE)
+            return fail_blob(err, snap->version, "label.observed", "class out of range");
+        if (v.part[i] > WEFT_LABEL_TEST)
+            return fail_blob(err, snap->version, "label.part", "part out of range");
+    }
+    if ((e = adjacency_view(snap, v.n_nodes, &v, err)))
+        return e;
+    *out = v;
+    return WEFT_OK;
+}
+
+static json_t *labels_json(const weft_gcn_shape *s, size_t n_classes, weft_sparse_norm norm,
+                           bool has_bias)
+{
+    json_t *dims = json_array();
+    for (size_t l = 0; dims && l <= s->n_layers; l++)
+        if (json_array_append_new(dims, json_integer((json_int_t)s->dims[l]))) {
+            json_decref(dims);
+            dims = NULL;
+        }
+    return json_pack("{s:s, s:I, s:I, s:o, s:s, s:s, s:b, s:s}", "kind", "gcn", "classes",
+                     (json_int_t)n_classes, "layers", (json_int_t)s->n_layers, "dims", dims,
+                     "activation", weft_gcn_act_name(s->act), "normalisation",
+                     weft_sparse_norm_name(norm), "bias", has_bias, "input",
+                     s->has_embedding ? "embedding" : "features");
+}
+
+weft_err weft_snapshot_put_labels(weft_store_writer *w, json_t *manifest, const weft_graph *g,
+                                  const weft_names *classes, const weft_gcn_trained *t,
+                                  weft_sparse_norm norm, const weft_sparse *adj,
+                                  const int32_t *y, const uint8_t *part, weft_error *err)
+{
+    const weft_gcn_shape *s = &t->shape;
+    size_t n = g->nodes.n, n_classes = classes->n;
+    if (!g->is_final || s->n_nodes != n || s->n_layers == 0 ||
+        s->n_layers > WEFT_GCN_MAX_LAYERS || s->dims[s->n_layers] != n_classes ||
+        n_classes == 0 || !t->output || !t->message || adj->n_rows != n || adj->n_cols != n ||
+        !weft_gcn_act_name(s->act) || !weft_sparse_norm_name(norm))
+        return weft_error_set(err, WEFT_ERR_INVALID,
+                              "label model of %zu nodes and %zu classes does not match the "
+                              "graph's %zu nodes and %zu classes",
+                              s->n_nodes, s->n_layers ? s->dims[s->n_layers] : 0, n, n_classes);
+    for (size_t v = 0; v < n; v++)
+        if (y[v] < -1 || y[v] >= (int32_t)n_classes || part[v] > WEFT_LABEL_TEST)
+            return weft_error_set(err, WEFT_ERR_INVALID,
+                                  "node %zu: label %d or part %u out of range", v, (int)y[v],
+                                  (unsigned)part[v]);
+    uint32_t *observed = weft_alloc_array(n ? n : 1, sizeof *observed);
+    if (!observed)
+        return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory writing the labels");
+    for (size_t v = 0; v < n; v++)
+        observed[v] = y[v] < 0 ? WEFT_LABEL_VIEW_NONE : (uint32_t)y[v];
+    const float *bias = s->has_bias ? t->params.b[s->n_layers - 1] : NULL;
+    size_t shape[2] = { n, n_classes }, nnz = weft_sparse_nnz(adj);
+    bool has_link = json_is_object(json_object_get(manifest, "link"));
+    weft_err e;
+    if ((!has_link && (e = put_names(w, "nodes", &g->nodes, err))) ||
+        (e = put_names(w, "classes", classes, err)) ||
+        (e = weft_store_writer_put(w, "label.prob", WEFT_DTYPE_F32, 2, shape, t->output, err)) ||
+        (e = weft_store_writer_put(w, "label.message", WEFT_DTYPE_F32, 2, shape, t->message,
+                                   err)) ||
+        (bias && (e = weft_store_writer_put(w, "label.bias", WEFT_DTYPE_F32, 1, &n_classes, bias,
+                                            err))) ||
+        (e = weft_store_writer_put(w, "label.observed", WEFT_DTYPE_U32, 1, &n, observed, err)) ||
+        (e = weft_store_writer_put(w, "label.part", WEFT_DTYPE_U8, 1, &n, part, err)) ||
+        (e = put_part(w, "label.adj", "off", WEFT_DTYPE_U64, n + 1, adj->off, err)) ||
+        (e = put_part(w, "label.adj", "col", WEFT_DTYPE_U32, nnz, adj->col, err)) ||
+        (e = put_part(w, "label.adj", "val", WEFT_DTYPE_F32, nnz, adj->val, err))) {
+        free(observed);
+        return e;
+    }
+    free(observed);
+    json_t *labels = labels_json(s, n_classes, norm, bias != NULL);
+    if (!labels || json_object_set_new(manifest, "labels", labels))
         return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory writing the manifest");
     return WEFT_OK;
 }

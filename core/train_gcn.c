@@ -40,8 +40,13 @@ void weft_train_gcn_defaults(weft_train_gcn_config *c, bool is_link)
     c->negatives = 1;
     if (is_link) {
         /* Graph auto-encoder (Kipf & Welling 2016): 32 hidden, 16 out, no dropout, Adam 0.01,
-         * 200 epochs, no early stopping. Their loss weighs every non-edge; we sample. */
+         * no early stopping. Their loss weighs every non-edge; we sample 5 per edge, which
+         * needs more than their 200 epochs: on Cora with features and an 85/5/10 split, test
+         * AUC / AP were 0.913 / 0.893 with 1 negative and 200 epochs, 0.922 / 0.909 with 5 and
+         * 200, 0.911 to 0.937 / 0.914 to 0.927 with 5 and 400 over seeds 1-5 (measured here). */
         c->hidden = 32;
+        c->negatives = 5;
+        c->epochs = 400;
         c->dropout = 0.0f;
         c->weight_decay = 0.0f;
         c->patience = 0;

@@ -9,7 +9,7 @@
 #include <string.h>
 #include <unistd.h>
 
-#include "cmd.h"
+#include "cmd_train.h"
 #include "weft/alloc.h"
 #include "weft/eval.h"
 #include "weft/graph.h"
@@ -20,45 +20,10 @@
 #include "weft/train_link.h"
 
 #define SUB "train"
-#define MAX_EDGE_FILES 64
 
 /* Held out when neither --holdout nor --test is given: valid, test. */
 #define DEFAULT_FRAC_VALID 0.05
 #define DEFAULT_FRAC_TEST 0.1
-
-/* Tuning flags the user gave: each overrides what weft_train_link_defaults() chose. */
-enum {
-    GIVEN_MODEL = 1u << 0,
-    GIVEN_LOSS = 1u << 1,
-    GIVEN_OPTIM = 1u << 2,
-    GIVEN_REG = 1u << 3,
-    GIVEN_REG_WEIGHT = 1u << 4,
-    GIVEN_LR = 1u << 5,
-    GIVEN_DIM = 1u << 6,
-    GIVEN_EPOCHS = 1u << 7,
-    GIVEN_NEGATIVES = 1u << 8,
-    GIVEN_BATCH = 1u << 9,
-    GIVEN_INIT = 1u << 10,
-    GIVEN_SEED = 1u << 11,
-    GIVEN_THREADS = 1u << 12,
-    GIVEN_EVAL_EVERY = 1u << 13,
-    GIVEN_PATIENCE = 1u << 14,
-    GIVEN_TIME_BUDGET = 1u << 15
-};
-
-struct train_opts {
-    const char *store;
-    const char *edges[MAX_EDGE_FILES];
-    size_t n_edges;
-    const char *valid, *test;     /* files; NULL with a holdout */
-    const char *report;
-    double frac_valid, frac_test;
-    bool has_holdout;
-    bool is_undirected;
-    bool is_quiet;
-    unsigned given;               /* GIVEN_* */
-    weft_train_link_config set;   /* the values of the given flags */
-};
 
 static void print_help(void)
 {
@@ -105,8 +70,9 @@ static void print_help(void)
            "                     (0: never stop early)\n\n"
            "output:\n"
            "  --report FILE      write the evaluation report as JSON\n"
-           "  --quiet            no per-epoch progress\n",
+           "  --quiet            no per-epoch progress\n\n",
            DEFAULT_FRAC_VALID, DEFAULT_FRAC_TEST);
+    cmd_train_gcn_help();
 }
 
 /* "--holdout T" or "--holdout V,T". */
@@ -142,8 +108,10 @@ static bool parse_named(const char *flag, const char *v, struct train_opts *o)
     bool ok = false;
     const char *known = "";
     if (!strcmp(flag, "--model")) {
-        ok = weft_model_kind_parse(v, &o->set.kind);
-        known = "dot, distmult, complex";
+        o->task = !strcmp(v, "gcn") ? CMD_TRAIN_GCN
+                : !strcmp(v, "gcn-link") ? CMD_TRAIN_GCN_LINK : CMD_TRAIN_LINK;
+        ok = o->task != CMD_TRAIN_LINK || weft_model_kind_parse(v, &o->set.kind);
+        known = "dot, distmult, complex, gcn, gcn-link";
         o->given |= GIVEN_MODEL;
     } else if (!strcmp(flag, "--loss")) {
         ok = weft_train_loss_parse(v, &o->set.loss);
@@ -270,7 +238,7 @@ static int check_inputs(const struct train_opts *o)
         return cmd_usage_error(SUB, "--valid needs --test (or use --holdout V,T)");
     if (o->test && o->has_holdout)
         return cmd_usage_error(SUB, "--holdout and --test exclude each other");
-    return CMD_OK;
+    return cmd_train_gcn_check(o);
 }
 
 static int parse_opts(int argc, char **argv, struct train_opts *o)
@@ -304,6 +272,9 @@ static int parse_opts(int argc, char **argv, struct train_opts *o)
         } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--holdout", &bad))) {
             if (!parse_holdout(v, o))
                 return CMD_USAGE;
+        } else if (!bad && cmd_train_gcn_parse(argc, argv, &i, o, &rc)) {
+            if (rc != CMD_OK)
+                return rc;
         } else if (!bad && parse_tuning(argc, argv, &i, o, &rc)) {
             if (rc != CMD_OK)
                 return rc;
@@ -472,9 +443,9 @@ static weft_err load_graph(const struct train_opts *o, struct inputs *in, weft_e
     return rc;
 }
 
-static json_t *input_fingerprints(const struct train_opts *o, weft_error *err)
+json_t *cmd_train_fingerprints(const struct train_opts *o, weft_error *err)
 {
-    const char *paths[MAX_EDGE_FILES + 2], *roles[MAX_EDGE_FILES + 2];
+    const char *paths[MAX_EDGE_FILES + 5], *roles[MAX_EDGE_FILES + 5];
     size_t n = 0;
     for (size_t i = 0; i < o->n_edges; i++) {
         paths[n] = o->edges[i];
@@ -488,6 +459,13 @@ static json_t *input_fingerprints(const struct train_opts *o, weft_error *err)
         paths[n] = o->test;
         roles[n++] = "test";
     }
+    const char *extra[3] = { o->features, o->labels, o->split };
+    static const char *const extra_roles[3] = { "features", "labels", "split" };
+    for (size_t i = 0; i < 3; i++)
+        if (extra[i]) {
+            paths[n] = extra[i];
+            roles[n++] = extra_roles[i];
+        }
     json_t *inputs = json_array();
     for (size_t i = 0; inputs && i < n; i++) {
         char hex[65];
@@ -512,7 +490,7 @@ struct progress {
 };
 
 /* "1h02m", "3m05s", "12s": short enough for a live line. */
-static void format_duration(char *out, size_t cap, double s)
+void cmd_train_format_duration(char *out, size_t cap, double s)
 {
     if (!(s >= 0) || s > 1e7)
         snprintf(out, cap, "?");
@@ -551,7 +529,7 @@ static void on_epoch(void *ctx, const weft_train_epoch *ep)
         return;
     /* Early stopping may end sooner: the ETA is the longest the run can still take. */
     char eta[16], mrr[64] = "", line[192];
-    format_duration(eta, sizeof eta, pr->elapsed / (double)ep->epoch *
+    cmd_train_format_duration(eta, sizeof eta, pr->elapsed / (double)ep->epoch *
                                          (double)(ep->epochs - ep->epoch));
     if (!isnan(pr->last_mrr))
         snprintf(mrr, sizeof mrr, "  valid MRR %.4f (best @%zu)", pr->last_mrr, ep->best_epoch);
@@ -627,7 +605,7 @@ static weft_err evaluate_splits(const struct inputs *in, const cmd_eval_input *e
 }
 
 /* @p x as the shortest decimal that reads back as the same float (0.1, not 0.100000001). */
-static double float_json(float x)
+double cmd_train_float_json(float x)
 {
     char buf[32];
     for (int p = 1; p <= 9; p++) {   /* 9 significant digits always read back exactly */
@@ -643,8 +621,8 @@ static json_t *model_json(const weft_train_link_config *c, const weft_train_resu
     json_t *hyper = json_pack(
         "{s:I, s:I, s:I, s:I, s:f, s:f, s:f, s:I, s:I, s:I, s:I, s:f}", "dim", (json_int_t)c->dim,
         "epochs", (json_int_t)c->epochs, "negatives", (json_int_t)c->negatives, "batch",
-        (json_int_t)c->batch, "lr", float_json(c->lr), "reg_weight", float_json(c->reg_weight),
-        "init", float_json(c->init_scale), "seed", (json_int_t)c->seed, "threads",
+        (json_int_t)c->batch, "lr", cmd_train_float_json(c->lr), "reg_weight", cmd_train_float_json(c->reg_weight),
+        "init", cmd_train_float_json(c->init_scale), "seed", (json_int_t)c->seed, "threads",
         (json_int_t)c->n_threads, "eval_every", (json_int_t)c->eval_every, "patience",
         (json_int_t)c->patience, "time_budget", c->max_seconds);
     return json_pack("{s:s, s:s, s:s, s:s, s:o, s:I, s:I, s:b, s:b}", "kind",
@@ -689,7 +667,7 @@ static json_t *split_json(const struct train_opts *o, const struct inputs *in, u
 
 static json_t *build_manifest(const struct train_opts *o, const weft_train_link_config *c,
                               const struct inputs *in, const struct results *res, json_t *curve,
-                              json_t *inputs)
+                              json_t *inputs, json_t *model)
 {
     const weft_graph *g = in->g;
     weft_names_view rel = weft_names_as_view(&g->relations);
@@ -704,12 +682,12 @@ static json_t *build_manifest(const struct train_opts *o, const weft_train_link_
         json_decref(metrics);
         metrics = NULL;
     }
-    return json_pack("{s:o, s:o, s:o, s:o, s:O}", "model", model_json(c, &res->run), "graph",
+    return json_pack("{s:o, s:o, s:o, s:o, s:O}", "model", model, "graph",
                      graph, "inputs", inputs, "metrics", metrics, "curve", curve);
 }
 
 /* The report: the manifest's metrics with the model and the curve. */
-static weft_err write_report(const char *path, const json_t *manifest, weft_error *err)
+weft_err cmd_train_write_report(const char *path, const json_t *manifest, weft_error *err)
 {
     json_t *report = json_deep_copy(json_object_get(manifest, "metrics"));
     if (!report || json_object_set(report, "model", json_object_get(manifest, "model")) ||
@@ -722,18 +700,16 @@ static weft_err write_report(const char *path, const json_t *manifest, weft_erro
     return rc ? weft_error_set(err, WEFT_ERR_IO, "%s: cannot write the report", path) : WEFT_OK;
 }
 
-static weft_err store_snapshot(const struct train_opts *o, const weft_train_link_config *c,
-                               const weft_graph *g, const weft_link_params *params,
-                               json_t *manifest, uint64_t *version, weft_error *err)
+weft_err cmd_train_store(const char *path, json_t *manifest, cmd_train_put_fn put, void *ctx,
+                         uint64_t *version, weft_error *err)
 {
     weft_store *store = NULL;
     weft_store_writer *w = NULL;
-    weft_link_model model = weft_link_params_model(params);
-    weft_err rc = weft_store_open(o->store, WEFT_STORE_CREATE, 0, &store, err);
+    weft_err rc = weft_store_open(path, WEFT_STORE_CREATE, 0, &store, err);
     if (rc == WEFT_OK)
         rc = weft_store_writer_open(store, &w, version, err);
     if (rc == WEFT_OK)
-        rc = weft_snapshot_put_link(w, manifest, g, &model, c->loss == WEFT_LOSS_LOGISTIC, err);
+        rc = put(ctx, w, manifest, err);
     if (rc == WEFT_OK) {
         rc = weft_store_writer_commit(w, manifest, true, NULL, err);
         w = NULL;   /* commit frees the writer whatever the outcome */
@@ -741,6 +717,19 @@ static weft_err store_snapshot(const struct train_opts *o, const weft_train_link
     weft_store_writer_abort(w);
     weft_store_close(store);
     return rc;
+}
+
+struct link_put {
+    const weft_graph *g;
+    const weft_link_params *params;
+    bool is_probability;
+};
+
+static weft_err put_link(void *ctx, weft_store_writer *w, json_t *manifest, weft_error *err)
+{
+    const struct link_put *lp = ctx;
+    weft_link_model model = weft_link_params_model(lp->params);
+    return weft_snapshot_put_link(w, manifest, lp->g, &model, lp->is_probability, err);
 }
 
 static void print_inputs(const struct inputs *in, const weft_train_link_config *c,
@@ -770,23 +759,31 @@ static void print_run(const weft_train_link_config *c, const weft_train_result *
 }
 
 static weft_err train_and_evaluate(const struct train_opts *o, struct inputs *in,
-                                   weft_train_link_config *cfg, struct results *res,
+                                   weft_train_link_config *cfg,
+                                   const weft_train_gcn_config *gcfg, struct results *res,
                                    weft_link_params *params, struct progress *pr,
                                    weft_error *err)
 {
     weft_graph *g = in->g;
     weft_eval_filter filter = { &g->out, &g->in, g->n_self_loops == 0 };
     weft_train_validation val = { in->valid, in->n_valid, &filter, !o->is_undirected };
-    weft_err rc = weft_train_link_run(cfg, in->train, in->n_train, g->nodes.n, g->relations.n,
-                                      in->n_valid ? &val : NULL, on_epoch, pr, params,
-                                      &res->run, err);
-    if (pr->is_tty && !o->is_quiet)
-        fputc('\n', stderr);
+    weft_err rc;
+    if (gcfg) {
+        rc = cmd_train_gcn_link(o, gcfg, g, in->train, in->n_train, in->valid, in->n_valid,
+                                pr->curve, params, &res->run, err);
+    } else {
+        rc = weft_train_link_run(cfg, in->train, in->n_train, g->nodes.n, g->relations.n,
+                                 in->n_valid ? &val : NULL, on_epoch, pr, params, &res->run,
+                                 err);
+        if (pr->is_tty && !o->is_quiet)
+            fputc('\n', stderr);
+    }
     if (rc != WEFT_OK)
         return rc;
     if (pr->is_nomem)
         return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory recording the curve");
-    print_run(cfg, &res->run, pr->elapsed);
+    if (!gcfg)
+        print_run(cfg, &res->run, pr->elapsed);
     weft_link_model model = weft_link_params_model(params);
     cmd_eval_input ev = { g->nodes.n, g->relations.n, !o->is_undirected, &filter, &model,
                           cfg->n_threads, cfg->seed };
@@ -807,6 +804,8 @@ int cmd_train_main(int argc, char **argv)
     int prc = parse_opts(argc, argv, &o);
     if (prc != CMD_OK)
         return prc < 0 ? CMD_OK : prc;
+    if (o.task == CMD_TRAIN_GCN)
+        return cmd_train_gcn_main(&o);
 
     weft_error err;
     weft_error_clear(&err);
@@ -824,6 +823,15 @@ int cmd_train_main(int argc, char **argv)
     if (rc != WEFT_OK)
         goto done;
     configure(&o, in.g, &cfg);
+    weft_train_gcn_config gcfg;
+    bool is_gcn_link = o.task == CMD_TRAIN_GCN_LINK;
+    if (is_gcn_link) {
+        /* The decoder is the link model that evaluation and serving see. */
+        cmd_train_gcn_configure(&o, true, &gcfg);
+        cfg.kind = gcfg.decoder;
+        cfg.loss = WEFT_LOSS_LOGISTIC;
+        cfg.dim = gcfg.out_dim;
+    }
     if (!in.is_files && (rc = load_holdout(&o, cfg.seed, &in, &err)) != WEFT_OK)
         goto done;
     print_inputs(&in, &cfg, o.is_undirected);
@@ -831,24 +839,34 @@ int cmd_train_main(int argc, char **argv)
     if (!in.is_files && in.n_valid == 0 && o.frac_valid > 0)
         fprintf(stderr, "weft: warning: no edge could be held out for validation: no early "
                         "stopping\n");
-    if (!(inputs = input_fingerprints(&o, &err))) {
+    if (!(inputs = cmd_train_fingerprints(&o, &err))) {
         rc = err.code ? err.code : weft_error_set(&err, WEFT_ERR_NOMEM, "out of memory");
         goto done;
     }
-    print_config(&cfg);
-    if ((rc = train_and_evaluate(&o, &in, &cfg, &res, &params, &pr, &err)) != WEFT_OK)
+    if (!is_gcn_link)
+        print_config(&cfg);
+    if ((rc = train_and_evaluate(&o, &in, &cfg, is_gcn_link ? &gcfg : NULL, &res, &params, &pr,
+                                 &err)) != WEFT_OK)
         goto done;
 
-    manifest = build_manifest(&o, &cfg, &in, &res, pr.curve, inputs);
+    json_t *model = is_gcn_link ? cmd_train_gcn_model_json(&gcfg, true, res.run.epochs_run,
+                                                           res.run.is_early_stop,
+                                                           o.features ? "features" : "embedding")
+                                : model_json(&cfg, &res.run);
+    if (model)
+        manifest = build_manifest(&o, &cfg, &in, &res, pr.curve, inputs, model);
+    else
+        json_decref(inputs);
     inputs = NULL;   /* the manifest owns it now */
     if (!manifest) {
         rc = weft_error_set(&err, WEFT_ERR_NOMEM, "out of memory building the manifest");
         goto done;
     }
-    if (o.report && (rc = write_report(o.report, manifest, &err)) != WEFT_OK)
+    if (o.report && (rc = cmd_train_write_report(o.report, manifest, &err)) != WEFT_OK)
         goto done;
     uint64_t version = 0;
-    if ((rc = store_snapshot(&o, &cfg, in.g, &params, manifest, &version, &err)) != WEFT_OK)
+    struct link_put lp = { in.g, &params, cfg.loss == WEFT_LOSS_LOGISTIC };
+    if ((rc = cmd_train_store(o.store, manifest, put_link, &lp, &version, &err)) != WEFT_OK)
         goto done;
     printf("\nsnapshot %llu written to %s and promoted: it is live\n",
            (unsigned long long)version, o.store);

@@ -6,6 +6,7 @@
  *   http_live.c    the loader thread: follows the store's head, publishes the live snapshot
  *   http_model.c   GET /healthz, GET /v1/model
  *   http_links.c   GET /v1/links/predict
+ *   http_labels.c  GET /v1/labels/predict, GET /v1/labels/explain
  */
 #ifndef WEFT_SERVER_HTTP_H
 #define WEFT_SERVER_HTTP_H
@@ -23,6 +24,8 @@
 /** k when a request gives none (capped at max_k). */
 #define HTTP_DEFAULT_K 10
 #define HTTP_DEFAULT_MAX_K 1000
+/** Most neighbours /v1/labels/explain lists one by one (the rest are summed). */
+#define HTTP_EXPLAIN_MAX_K 1000
 #define HTTP_DEFAULT_POLL_MS 200
 #define HTTP_DEFAULT_PORT 8080
 /** Idle connections are closed after this many seconds. */
@@ -60,6 +63,8 @@ typedef struct http_model {
     uint64_t version;
     bool has_links;          /**< the snapshot has a link model, and links is filled */
     weft_link_view links;
+    bool has_labels;         /**< the snapshot has a label model, and labels is filled */
+    weft_label_view labels;  /**< (a loaded model has at least one of the two) */
 } http_model;
 
 /** The loader: a thread that follows the store's head and publishes snapshots. Opaque. */
@@ -159,11 +164,13 @@ weft_err http_route_arg_count(const http_request *rq, const char *key, size_t fa
 /** True when the request asks for indented JSON (?pretty, ?pretty=1, ?pretty=true). */
 bool http_route_is_pretty(struct MHD_Connection *conn);
 
-/* ---- handlers (http_model.c, http_links.c) ---- */
+/* ---- handlers (http_model.c, http_links.c, http_labels.c) ---- */
 
 void http_model_healthz(const http_request *rq, http_reply *out);
 void http_model_get(const http_request *rq, http_reply *out);
 void http_links_predict(const http_request *rq, http_reply *out);
+void http_labels_predict(const http_request *rq, http_reply *out);
+void http_labels_explain(const http_request *rq, http_reply *out);
 
 /* ---- the daemon (http_daemon.c) ---- */
 

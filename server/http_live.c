@@ -1,6 +1,6 @@
 /* The loader: the one thread that talks to LMDB. It follows the store's head, opens a newly
  * promoted snapshot (weft_snapshot_open checks every CRC and pre-faults the pages), builds
- * its link view and publishes it. Request threads only copy the published model and take a
+ * its link and label views and publishes them. Request threads only copy the published model and take a
  * snapshot reference under a mutex, so they never wait for LMDB or for a load. */
 #include "http.h"
 
@@ -57,7 +57,9 @@ static void publish(http_live *live, http_model *next)
     }
 }
 
-/* Open @p version and build what requests need from it. */
+/* Open @p version and build what requests need from it: its link model, its label model,
+ * or both. A part that is there but inconsistent keeps the whole snapshot from being served;
+ * so does a snapshot that holds neither. */
 static weft_err load(http_live *live, uint64_t version, http_model **out, weft_error *err)
 {
     http_model *m = calloc(1, sizeof *m);
@@ -70,19 +72,36 @@ static weft_err load(http_live *live, uint64_t version, http_model **out, weft_e
         return rc;
     }
     m->version = version;
-    weft_error links_err;
-    weft_error_clear(&links_err);
-    rc = weft_snapshot_link_view(m->snap, &m->links, &links_err);
+    weft_error part_err;   /* a missing part is no error: its message is dropped */
+    weft_error_clear(&part_err);
+    rc = weft_snapshot_link_view(m->snap, &m->links, &part_err);
     m->has_links = rc == WEFT_OK;
-    if (rc != WEFT_OK && rc != WEFT_ERR_NOT_FOUND) {
-        /* A link model that is there but inconsistent is not served at all. */
+    if (rc == WEFT_OK || rc == WEFT_ERR_NOT_FOUND) {
+        rc = weft_snapshot_label_view(m->snap, &m->labels, &part_err);
+        m->has_labels = rc == WEFT_OK;
+    }
+    if (rc == WEFT_ERR_NOT_FOUND)
+        rc = m->has_links ? WEFT_OK
+                          : weft_error_set(&part_err, WEFT_ERR_CORRUPT,
+                                           "version %llu holds neither a link model nor a "
+                                           "label model", (unsigned long long)version);
+    if (rc != WEFT_OK) {
         weft_snapshot_release(m->snap);
         free(m);
-        *err = links_err;
+        if (err)
+            *err = part_err;
         return rc;
     }
     *out = m;
     return WEFT_OK;
+}
+
+/* " (link model only)" and the like, for the log line of a newly served version. */
+static const char *parts_note(const http_model *m)
+{
+    if (m->has_links && m->has_labels)
+        return " (link and label models)";
+    return m->has_links ? " (link model only)" : " (label model only)";
 }
 
 /* One poll: open the store if needed, read the head, follow a change. */
@@ -127,8 +146,7 @@ static void poll_once(http_live *live)
         return;
     }
     live->last_problem[0] = '\0';
-    http_log("serving version %llu%s", (unsigned long long)version,
-             m->has_links ? "" : " (no link model)");
+    http_log("serving version %llu%s", (unsigned long long)version, parts_note(m));
     publish(live, m);
 }
 

@@ -210,7 +210,7 @@ static void analytic(net *t)
 }
 
 typedef struct block {
-    char name[16];
+    char name[24];
     float *p, *g;
     size_t n;
 } block;

@@ -1,0 +1,129 @@
+/* weft train: what the link and GCN halves of the subcommand share (server/cmd_train.c,
+ * server/cmd_train_gcn.c). Not part of libweft. */
+#ifndef WEFT_SERVER_CMD_TRAIN_H
+#define WEFT_SERVER_CMD_TRAIN_H
+
+#include <jansson.h>
+#include <stdbool.h>
+#include <stddef.h>
+
+#include "cmd.h"
+#include "weft/graph.h"
+#include "weft/store.h"
+#include "weft/train_gcn.h"
+#include "weft/train_link.h"
+
+#define MAX_EDGE_FILES 64
+
+/** What a run trains. */
+typedef enum cmd_train_task {
+    CMD_TRAIN_LINK = 0,     /**< dot, distmult, complex */
+    CMD_TRAIN_GCN = 1,      /**< node classification */
+    CMD_TRAIN_GCN_LINK = 2  /**< GCN encoder, dot or DistMult decoder */
+} cmd_train_task;
+
+/* GCN flags the user gave. */
+enum {
+    GIVEN_GCN_LAYERS = 1u << 0,
+    GIVEN_GCN_HIDDEN = 1u << 1,
+    GIVEN_GCN_ACT = 1u << 2,
+    GIVEN_GCN_DROPOUT = 1u << 3,
+    GIVEN_GCN_WEIGHT_DECAY = 1u << 4,
+    GIVEN_GCN_NORM = 1u << 5,
+    GIVEN_GCN_BIAS = 1u << 6,
+    GIVEN_GCN_DECODER = 1u << 7
+};
+
+/* Tuning flags the user gave: each overrides what weft_train_link_defaults() chose. */
+enum {
+    GIVEN_MODEL = 1u << 0,
+    GIVEN_LOSS = 1u << 1,
+    GIVEN_OPTIM = 1u << 2,
+    GIVEN_REG = 1u << 3,
+    GIVEN_REG_WEIGHT = 1u << 4,
+    GIVEN_LR = 1u << 5,
+    GIVEN_DIM = 1u << 6,
+    GIVEN_EPOCHS = 1u << 7,
+    GIVEN_NEGATIVES = 1u << 8,
+    GIVEN_BATCH = 1u << 9,
+    GIVEN_INIT = 1u << 10,
+    GIVEN_SEED = 1u << 11,
+    GIVEN_THREADS = 1u << 12,
+    GIVEN_EVAL_EVERY = 1u << 13,
+    GIVEN_PATIENCE = 1u << 14,
+    GIVEN_TIME_BUDGET = 1u << 15
+};
+
+struct train_opts {
+    const char *store;
+    const char *edges[MAX_EDGE_FILES];
+    size_t n_edges;
+    const char *valid, *test;     /* files; NULL with a holdout */
+    const char *report;
+    double frac_valid, frac_test;
+    bool has_holdout;
+    bool is_undirected;
+    bool is_quiet;
+    unsigned given;               /* GIVEN_* */
+    weft_train_link_config set;   /* the values of the given flags */
+    /* GCN (cmd_train_gcn.c) */
+    cmd_train_task task;
+    const char *labels, *features, *split;
+    bool is_raw_features;         /* --raw-features: no row normalisation */
+    unsigned given_gcn;           /* GIVEN_GCN_* */
+    weft_train_gcn_config gset;   /* the values of the given GCN flags */
+};
+
+/**
+ * SHA-256 fingerprints of every input file of @p o, as [{"role", "path", "sha256"}].
+ * A new reference; NULL on failure (then @p err says why, or nothing when out of memory).
+ */
+json_t *cmd_train_fingerprints(const struct train_opts *o, weft_error *err);
+
+/** "1h02m", "3m05s", "12s". */
+void cmd_train_format_duration(char *out, size_t cap, double s);
+
+/** @p x as the shortest decimal that reads back as the same float. */
+double cmd_train_float_json(float x);
+
+/** Write the report: the manifest's "metrics" with its "model" and "curve". */
+weft_err cmd_train_write_report(const char *path, const json_t *manifest, weft_error *err);
+
+/** Write @p manifest's model as the next snapshot of @p o->store and promote it; @p put
+ *  writes the blobs. */
+typedef weft_err (*cmd_train_put_fn)(void *ctx, weft_store_writer *w, json_t *manifest,
+                                     weft_error *err);
+weft_err cmd_train_store(const char *store, json_t *manifest, cmd_train_put_fn put, void *ctx,
+                         uint64_t *version, weft_error *err);
+
+/* ---- cmd_train_gcn.c ---- */
+
+/** Parse the GCN flags; returns 1 when argv[*i] is one (*rc its verdict), else 0. */
+int cmd_train_gcn_parse(int argc, char **argv, int *i, struct train_opts *o, int *rc);
+
+/** Check the flags given against the task. @return CMD_OK or CMD_USAGE (printed). */
+int cmd_train_gcn_check(const struct train_opts *o);
+
+/** The usage text of the GCN flags. */
+void cmd_train_gcn_help(void);
+
+/** `weft train --model gcn`: the whole run. @return the exit status. */
+int cmd_train_gcn_main(const struct train_opts *o);
+
+/** The GCN configuration of @p o (defaults, then the flags given). */
+void cmd_train_gcn_configure(const struct train_opts *o, bool is_link, weft_train_gcn_config *c);
+
+/**
+ * gcn-link: train on @p train over the final graph @p g (node features from o->features if
+ * given), appending epochs to @p curve, then fill @p params (the decoder's view) and @p run.
+ */
+weft_err cmd_train_gcn_link(const struct train_opts *o, const weft_train_gcn_config *cfg,
+                            const weft_graph *g, const weft_triple *train, size_t m,
+                            const weft_triple *valid, size_t n_valid, json_t *curve,
+                            weft_link_params *params, weft_train_result *run, weft_error *err);
+
+/** The manifest's "model" of a GCN run. A new reference, NULL when out of memory. */
+json_t *cmd_train_gcn_model_json(const weft_train_gcn_config *c, bool is_link,
+                                 size_t epochs_run, bool is_early_stop, const char *input);
+
+#endif
