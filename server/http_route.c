@@ -8,19 +8,29 @@
 
 static const char *const model_params[] = { NULL };
 static const char *const predict_params[] = { "source", "relation", "k", NULL };
+static const char *const label_predict_params[] = { "node", NULL };
+static const char *const label_explain_params[] = { "node", "k", NULL };
+
+/* Which part of a snapshot a route answers from. */
+enum route_needs { NEEDS_NOTHING, NEEDS_SNAPSHOT, NEEDS_LINKS, NEEDS_LABELS };
 
 /* Every route the server answers. A path may appear once per method. params lists the query
  * parameters the route takes besides "pretty"; any other is a 400, so that a misspelt
- * option is reported instead of ignored. NULL takes anything (probes add cache breakers). */
+ * option is reported instead of ignored. NULL takes anything (probes add cache breakers).
+ * needs: the dispatcher answers 503 while no snapshot is live and 404 when the live one lacks
+ * the model the route needs, so that a handler always finds its part. */
 static const struct route {
     const char *method;
     const char *path;
     http_handler handler;
     const char *const *params;
+    enum route_needs needs;
 } routes[] = {
-    { "GET", "/healthz", http_model_healthz, NULL },
-    { "GET", "/v1/model", http_model_get, model_params },
-    { "GET", "/v1/links/predict", http_links_predict, predict_params },
+    { "GET", "/healthz", http_model_healthz, NULL, NEEDS_NOTHING },
+    { "GET", "/v1/model", http_model_get, model_params, NEEDS_SNAPSHOT },
+    { "GET", "/v1/links/predict", http_links_predict, predict_params, NEEDS_LINKS },
+    { "GET", "/v1/labels/predict", http_labels_predict, label_predict_params, NEEDS_LABELS },
+    { "GET", "/v1/labels/explain", http_labels_explain, label_explain_params, NEEDS_LABELS },
 };
 #define N_ROUTES (sizeof routes / sizeof routes[0])
 
@@ -93,6 +103,33 @@ static bool check_params(const http_request *rq, const struct route *rt, http_re
     return false;
 }
 
+/* The live snapshot holds what @p rt needs; else fill @p out with 503 or 404. */
+static bool check_needs(const http_request *rq, const struct route *rt, http_reply *out)
+{
+    if (rt->needs == NEEDS_NOTHING)
+        return true;
+    const http_model *m = rq->model;
+    if (!m) {
+        http_error_reply(out, HTTP_FAULT_NO_SNAPSHOT, NULL, "no snapshot is live yet");
+        return false;
+    }
+    if (rt->needs == NEEDS_LINKS && !m->has_links) {
+        http_error_reply(out, HTTP_FAULT_NOT_FOUND,
+                         "this snapshot has no link model; train one with "
+                         "--model dot|distmult|complex|gcn-link",
+                         "snapshot %llu has no link model", (unsigned long long)m->version);
+        return false;
+    }
+    if (rt->needs == NEEDS_LABELS && !m->has_labels) {
+        http_error_reply(out, HTTP_FAULT_NOT_FOUND,
+                         "this snapshot has no label model; train one with "
+                         "--model gcn --labels FILE",
+                         "snapshot %llu has no label model", (unsigned long long)m->version);
+        return false;
+    }
+    return true;
+}
+
 void http_route_dispatch(const http_request *rq, const char *method, const char *path,
                          http_reply *out)
 {
@@ -121,7 +158,7 @@ void http_route_dispatch(const http_request *rq, const char *method, const char 
         return;
     }
     out->allow[0] = '\0';
-    if (check_params(rq, found, out))
+    if (check_params(rq, found, out) && check_needs(rq, found, out))
         found->handler(rq, out);
 }
 
