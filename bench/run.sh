@@ -52,6 +52,65 @@ done
 echo >>"$report"
 echo "Raw JSON lines: $OUT/raw.jsonl" >>"$report"
 
+# ---- GCN on Cora (Sen et al. 2008; split of Yang et al. 2016): speed and quality ----
+# Reference: ../shared/bench/ref_gcn.py (PyTorch, Kipf & Welling 2017 recipe, sparse
+# features), 10 seeds, GCN_THREADS threads (default 1) on both sides, same environment.
+# One epoch = a training step and a validation forward pass on both sides.
+CORA=${CORA:-$TOP/../shared/datasets/cora}
+REF_GCN=${REF_GCN:-$TOP/../shared/bench/ref_gcn.py}
+GCN_THREADS=${GCN_THREADS:-1}
+if [ -d "$CORA" ]; then
+    unset OPENBLAS_NUM_THREADS
+    $CC -O2 -std=c11 -D_POSIX_C_SOURCE=200809L -I"$TOP/include" "$TOP/bench/bench_gcn.c" \
+        "$BUILD/libweft.a" -ljansson -lopenblas -lnettle -lz -lpthread -lm -o "$OUT/bench_gcn"
+    gfield() { /usr/bin/python3 -c 'import json,sys; print(json.loads(sys.argv[1].split(" ", 1)[1])[sys.argv[2]])' "$1" "$2"; }
+    wg=$("$OUT/bench_gcn" "$CORA" "$GCN_THREADS" 10 | tee -a "$OUT/raw.jsonl" | grep SUMMARY)
+    {
+        echo
+        echo "## GCN node classification on Cora: 10 seeds, $GCN_THREADS thread(s)"
+        echo
+        echo "| | weft | reference (PyTorch) | ratio (goal) |"
+        echo "|---|---|---|---|"
+    } >>"$report"
+    if /usr/bin/python3 -c 'import torch' 2>/dev/null && [ -f "$REF_GCN" ]; then
+        rg=$(/usr/bin/python3 "$REF_GCN" "$CORA" "$GCN_THREADS" 10 --sparse-x | tee -a "$OUT/raw.jsonl" | grep SUMMARY)
+        we=$(gfield "$wg" median_epoch_ms); re=$(gfield "$rg" median_epoch_ms)
+        wr=$(gfield "$wg" median_train_s); rr=$(gfield "$rg" median_train_s)
+        {
+            echo "| median ms per epoch | $we | $re | $(awk -v a="$we" -v b="$re" 'BEGIN{printf "%.3f", a/b}') (<= 0.2) |"
+            echo "| median s per run (early stopping on both sides) | $wr | $rr | $(awk -v a="$wr" -v b="$rr" 'BEGIN{printf "%.3f", a/b}') |"
+            echo "| 200 epochs at the median epoch time, s | $(awk -v e="$we" 'BEGIN{printf "%.3f", e*0.2}') | $(awk -v e="$re" 'BEGIN{printf "%.3f", e*0.2}') | $(awk -v a="$we" -v b="$re" 'BEGIN{printf "%.3f", a/b}') (<= 0.2) |"
+            echo "| mean epochs run | $(gfield "$wg" mean_epochs) | $(gfield "$rg" median_epochs) (median) | |"
+            echo "| test accuracy, mean +- sd (%) | $(gfield "$wg" test_acc_mean) +- $(gfield "$wg" test_acc_std) | $(gfield "$rg" test_acc_mean) +- $(gfield "$rg" test_acc_std) | paper 81.5 |"
+            echo "| peak memory (maxrss), MB | $(gfield "$wg" maxrss_mb) | $(gfield "$rg" maxrss_mb) | $(awk -v a="$(gfield "$wg" maxrss_mb)" -v b="$(gfield "$rg" maxrss_mb)" 'BEGIN{printf "%.3f", a/b}') |"
+        } >>"$report"
+    else
+        echo "| median ms per epoch | $(gfield "$wg" median_epoch_ms) | (PyTorch missing) | - |" >>"$report"
+    fi
+    # GCN link prediction (graph auto-encoder setting, Kipf & Welling 2016: AUC 0.910, AP
+    # 0.920 on Cora with features, 85/5/10 edge split): weft train --model gcn-link with its
+    # defaults, seeds 1-5; test edges against as many sampled non-edges.
+    {
+        echo
+        echo "## GCN link prediction on Cora with features, 85/5/10 edge split, seeds 1-5"
+        echo
+        echo "| seed | test AUC-ROC (goal >= 0.90) | test AP (goal >= 0.90) | popularity AUC | train s |"
+        echo "|---|---|---|---|---|"
+    } >>"$report"
+    for seed in 1 2 3 4 5; do
+        rm -rf "$OUT/gcn-link-store"
+        "$BUILD/weft" train --store "$OUT/gcn-link-store" --model gcn-link --undirected \
+            --edges "$CORA/edges.tsv" --features "$CORA/features.tsv" --holdout 0.05,0.1 \
+            --seed "$seed" --quiet --report "$OUT/gcn-link.$seed.json" >/dev/null
+        /usr/bin/python3 -c 'import json,sys
+r = json.load(open(sys.argv[1])); t = r["test"]
+secs = sum(e["seconds"] for e in r["curve"])
+print("| %s | %.4f | %.4f | %.4f | %.2f |" % (sys.argv[2], t["auc"], t["ap"], r["baselines"]["popularity"]["auc"], secs))' \
+            "$OUT/gcn-link.$seed.json" "$seed" >>"$report"
+    done
+    rm -rf "$OUT/gcn-link-store"
+fi
+
 # ---- Link prediction on WN18RR (Dettmers et al. 2018): speed and quality ----
 # Reference: ../shared/bench/ref_kge.py (PyTorch DistMult), same data, dimension 200, batch
 # 1000, 128 negatives per side, 2 threads, same environment. Both sides run with

@@ -120,7 +120,9 @@ check "empty store: responses match the spec" /usr/bin/python3 "$E2E_TMP/contrac
     "$SPEC" "$BASE" \
     "GET /healthz 200" \
     "GET /v1/model 503" \
-    "GET /v1/links/predict?source=m0 503"
+    "GET /v1/links/predict?source=m0 503" \
+    "GET /v1/labels/predict?node=m0 503" \
+    "GET /v1/labels/explain?node=m0 503"
 
 "$WEFT" train --quiet --store "$STORE" --edges "$TOP/tests/data/karate/edges.tsv" \
     --model dot --undirected >"$E2E_TMP/train.log" 2>&1
@@ -150,7 +152,9 @@ check "live snapshot: responses match the spec" /usr/bin/python3 "$E2E_TMP/contr
     "DELETE /v1/model 405" \
     "POST /healthz 405" \
     "GET /v1 404" \
-    "GET /v1/links/predict/ 404"
+    "GET /v1/links/predict/ 404" \
+    "GET /v1/labels/predict?node=m0 404" \
+    "GET /v1/labels/explain?node=m0 404"
 
 # The 404 for an unknown path lists every route as "METHOD /path, ..." in its hint.
 check "the spec lists exactly the server's routes" /usr/bin/python3 -c '
@@ -166,5 +170,35 @@ except urllib.error.HTTPError as e:
 if served != documented:
     print("served only:", sorted(served - documented), "documented only:", sorted(documented - served))
 sys.exit(served != documented)' "$SPEC" "$BASE"
+
+# A label model only, in a store of its own (a run in the store above would carry its link
+# model over): GCN on karate's two factions (tests/data/karate/labels.tsv).
+stop_server
+LSTORE="$E2E_TMP/labels-store"
+"$WEFT" train --quiet --store "$LSTORE" --edges "$TOP/tests/data/karate/edges.tsv" \
+    --labels "$TOP/tests/data/karate/labels.tsv" --model gcn --epochs 20 \
+    >>"$E2E_TMP/train.log" 2>&1
+start_server "$LSTORE" || finish
+
+check "label model: responses match the spec" /usr/bin/python3 "$E2E_TMP/contract.py" \
+    "$SPEC" "$BASE" \
+    "GET /v1/model 200" \
+    "GET /v1/labels/predict?node=m0 200" \
+    "GET /v1/labels/predict?node=m33&pretty=1 200" \
+    "GET /v1/labels/predict?node=nobody 404" \
+    "GET /v1/labels/predict 400" \
+    "GET /v1/labels/predict?node= 400" \
+    "GET /v1/labels/predict?node=m0&k=3 400" \
+    "POST /v1/labels/predict 405" \
+    "GET /v1/labels/explain?node=m0 200" \
+    "GET /v1/labels/explain?node=m33&k=1 200" \
+    "GET /v1/labels/explain?node=m0&k=1000 200" \
+    "GET /v1/labels/explain?node=nobody 404" \
+    "GET /v1/labels/explain?k=3 400" \
+    "GET /v1/labels/explain?node=m0&k=0 400" \
+    "GET /v1/labels/explain?node=m0&k=1001 400" \
+    "GET /v1/labels/explain?node=m0&top=3 400" \
+    "DELETE /v1/labels/explain 405" \
+    "GET /v1/links/predict?source=m0 404"
 
 finish

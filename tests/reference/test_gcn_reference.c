@@ -109,7 +109,7 @@ static void build_identity(weft_sparse *x, const weft_graph *g, size_t k)
     x->col = calloc(n, sizeof *x->col);
     x->val = calloc(n, sizeof *x->val);
     cr_assert(x->off && x->col && x->val);
-    char name[32];
+    char name[64];
     snprintf(name, sizeof name, "c%zu_x.tsv", k);
     FILE *f = fopen(fixture_path(name), "w");
     cr_assert_not_null(f);
@@ -132,7 +132,7 @@ static void build_identity(weft_sparse *x, const weft_graph *g, size_t k)
 static void build_pattern(weft_sparse *x, const weft_graph *g, size_t k, bool row_normalise)
 {
     static const char *const value[4] = { ":0.5", ":0.75", "", ":1.25" };
-    char name[32];
+    char name[64];
     snprintf(name, sizeof name, "c%zu_x.tsv", k);
     FILE *f = fopen(fixture_path(name), "w");
     cr_assert_not_null(f);
@@ -179,7 +179,7 @@ static void fill_params(gcn_run *r, uint64_t seed)
 static void write_case(const gcn_run *r, const gcn_case *cs, size_t k)
 {
     const weft_gcn_shape *s = &r->shape;
-    char name[32];
+    char name[64];
     snprintf(name, sizeof name, "c%zu_meta.txt", k);
     FILE *f = fopen(fixture_path(name), "w");
     cr_assert_not_null(f);
@@ -278,6 +278,7 @@ static void check_attribution(FILE *py, const gcn_run *r, const gcn_case *cs, si
     const weft_gcn_shape *s = &r->shape;
     size_t last = s->n_layers - 1, d = s->dims[s->n_layers];
     const float *fwd = r->c.h[s->n_layers];
+    cr_assert_leq(d, 8, "out[] below holds 8 columns");
     for (uint32_t v = 0; v < s->n_nodes; v++) {
         unsigned pv;
         size_t want_count;
