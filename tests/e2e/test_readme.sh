@@ -36,4 +36,29 @@ check "unknown node example is a JSON error with a hint" /usr/bin/python3 -c '
 import json, sys
 d = json.load(open(sys.argv[1]))
 assert d["error"]["code"] == "not_found" and d["error"]["hint"], d' "$E2E_TMP/ex$n.json"
+stop_server
+
+# The Labels section: its training command (as printed there) and its curl examples.
+cd "$E2E_TMP" && mkdir -p build tests && ln -s "$WEFT" build/weft && ln -s "$TOP/tests/data" tests/data
+build/weft train --store label-store --model gcn --edges tests/data/cora/edges.tsv \
+    --features tests/data/cora/features.tsv --labels tests/data/cora/labels.tsv \
+    --split tests/data/cora/split.tsv >"$E2E_TMP/labels-train.log" 2>&1
+check "README label training command runs" test $? -eq 0
+grep -q "build/weft train --store label-store --model gcn --edges tests/data/cora/edges.tsv" \
+    "$TOP/README.md"
+check "README shows that training command" test $? -eq 0
+start_server label-store
+grep -E "^curl -s '?http://127\.0\.0\.1:8081" "$TOP/README.md" | sed "s/127\.0\.0\.1:8081/127.0.0.1:$PORT/" \
+    >"$E2E_TMP/label-examples"
+check "README has label curl examples" test "$(wc -l <"$E2E_TMP/label-examples")" -ge 2
+n=0
+while IFS= read -r cmd; do
+    n=$((n + 1))
+    sh -c "$cmd" >"$E2E_TMP/lex$n.json" 2>&1
+    check "label example $n answers with the caution: $cmd" /usr/bin/python3 -c '
+import json, sys
+d = json.load(open(sys.argv[1]))
+assert d["node"] == "n0" and "person" in d["caution"], d' \
+        "$E2E_TMP/lex$n.json"
+done <"$E2E_TMP/label-examples"
 finish
