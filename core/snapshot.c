@@ -593,3 +593,61 @@ weft_err weft_snapshot_put_labels(weft_store_writer *w, json_t *manifest, const 
         return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory writing the manifest");
     return WEFT_OK;
 }
+
+/* ---- carrying a model part over from another snapshot ---- */
+
+bool weft_snapshot_same_nodes(const weft_snapshot *snap, const weft_names *nodes)
+{
+    weft_names_view v, mine = weft_names_as_view(nodes);
+    if (names_view(snap, "nodes", &v, NULL) != WEFT_OK || v.n != mine.n)
+        return false;
+    size_t n_bytes = (size_t)mine.off[mine.n];
+    return v.off[v.n] == mine.off[mine.n] &&
+           !memcmp(v.off, mine.off, (mine.n + 1) * sizeof *v.off) &&
+           !memcmp(v.bytes, mine.bytes, n_bytes);
+}
+
+static const char *part_key(weft_snapshot_part part)
+{
+    return part == WEFT_SNAPSHOT_LINK ? "link" : "labels";
+}
+
+bool weft_snapshot_has_part(const weft_snapshot *snap, weft_snapshot_part part)
+{
+    return json_is_object(json_object_get(snap->manifest, part_key(part)));
+}
+
+/* Whether blob @p name belongs to model part @p part (the node table belongs to neither). */
+static bool blob_of_part(const char *name, weft_snapshot_part part)
+{
+    static const char *const link[] = { "relations.", "known_out.", "known_in." };
+    if (part == WEFT_SNAPSHOT_LABELS)
+        return !strncmp(name, "classes.", 8) || !strncmp(name, "label.", 6);
+    if (!strcmp(name, "entity") || !strcmp(name, "relation"))
+        return true;
+    for (size_t i = 0; i < sizeof link / sizeof link[0]; i++)
+        if (!strncmp(name, link[i], strlen(link[i])))
+            return true;
+    return false;
+}
+
+weft_err weft_snapshot_copy_part(weft_store_writer *w, const weft_snapshot *from,
+                                 weft_snapshot_part part, json_t *manifest, weft_error *err)
+{
+    json_t *obj = json_object_get(from->manifest, part_key(part));
+    if (!json_is_object(obj))
+        return weft_error_set(err, WEFT_ERR_NOT_FOUND, "version %llu has no %s model",
+                              (unsigned long long)from->version, part_key(part));
+    for (size_t i = 0; i < from->n_blobs; i++) {
+        const struct named_blob *nb = &from->blobs[i];
+        if (!blob_of_part(nb->name, part))
+            continue;
+        weft_err rc = weft_store_writer_put(w, nb->name, nb->blob.dtype, nb->blob.ndim,
+                                            nb->blob.shape, nb->blob.data, err);
+        if (rc != WEFT_OK)
+            return rc;
+    }
+    if (json_object_set(manifest, part_key(part), obj))
+        return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory copying the manifest");
+    return WEFT_OK;
+}

@@ -70,8 +70,16 @@ static void print_help(void)
            "                     (0: never stop early)\n\n"
            "output:\n"
            "  --report FILE      write the evaluation report as JSON\n"
-           "  --quiet            no per-epoch progress\n\n",
-           DEFAULT_FRAC_VALID, DEFAULT_FRAC_TEST);
+           "  --quiet            no per-epoch progress\n\n"
+           "the gate: a new snapshot goes live only if it beats its baselines on test and its\n"
+           "test MRR (links) or accuracy (labels) is at most a tolerance below the live one's;\n"
+           "otherwise it is stored as rejected, with the reason, and weft exits with status 3.\n"
+           "The model part a run does not train is carried over from the live snapshot when the\n"
+           "node table is the same.\n"
+           "  --gate-tolerance X how far below the live key metric is still accepted (%g)\n"
+           "  --force            promote even when the gate refuses (recorded in the manifest)\n"
+           "  --no-promote       store the snapshot as staged; the live one stays\n\n",
+           DEFAULT_FRAC_VALID, DEFAULT_FRAC_TEST, CMD_TRAIN_GATE_TOLERANCE);
     cmd_train_gcn_help();
 }
 
@@ -246,6 +254,7 @@ static int parse_opts(int argc, char **argv, struct train_opts *o)
     memset(o, 0, sizeof *o);
     o->frac_valid = DEFAULT_FRAC_VALID;
     o->frac_test = DEFAULT_FRAC_TEST;
+    o->gate_tolerance = CMD_TRAIN_GATE_TOLERANCE;
     for (int i = 1; i < argc; i++) {
         bool bad = false;
         const char *v;
@@ -257,6 +266,13 @@ static int parse_opts(int argc, char **argv, struct train_opts *o)
             o->is_undirected = true;
         } else if (!strcmp(argv[i], "--quiet")) {
             o->is_quiet = true;
+        } else if (!strcmp(argv[i], "--force")) {
+            o->is_force = true;
+        } else if (!strcmp(argv[i], "--no-promote")) {
+            o->is_no_promote = true;
+        } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--gate-tolerance", &bad))) {
+            if (!cmd_parse_double(SUB, "--gate-tolerance", v, 0.0, 1.0, &o->gate_tolerance))
+                return CMD_USAGE;
         } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--store", &bad))) {
             o->store = v;
         } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--edges", &bad))) {
@@ -682,8 +698,9 @@ static json_t *build_manifest(const struct train_opts *o, const weft_train_link_
         json_decref(metrics);
         metrics = NULL;
     }
-    return json_pack("{s:o, s:o, s:o, s:o, s:O}", "model", model, "graph",
-                     graph, "inputs", inputs, "metrics", metrics, "curve", curve);
+    return json_pack("{s:o, s:o, s:o, s:o, s:O, s:{s:{s:O, s:O, s:O}}}", "model", model,
+                     "graph", graph, "inputs", inputs, "metrics", metrics, "curve", curve,
+                     "models", "link", "model", model, "metrics", metrics, "curve", curve);
 }
 
 /* The report: the manifest's metrics with the model and the curve. */
@@ -698,25 +715,6 @@ weft_err cmd_train_write_report(const char *path, const json_t *manifest, weft_e
     int rc = json_dump_file(report, path, JSON_INDENT(2) | JSON_REAL_PRECISION(10));
     json_decref(report);
     return rc ? weft_error_set(err, WEFT_ERR_IO, "%s: cannot write the report", path) : WEFT_OK;
-}
-
-weft_err cmd_train_store(const char *path, json_t *manifest, cmd_train_put_fn put, void *ctx,
-                         uint64_t *version, weft_error *err)
-{
-    weft_store *store = NULL;
-    weft_store_writer *w = NULL;
-    weft_err rc = weft_store_open(path, WEFT_STORE_CREATE, 0, &store, err);
-    if (rc == WEFT_OK)
-        rc = weft_store_writer_open(store, &w, version, err);
-    if (rc == WEFT_OK)
-        rc = put(ctx, w, manifest, err);
-    if (rc == WEFT_OK) {
-        rc = weft_store_writer_commit(w, manifest, true, NULL, err);
-        w = NULL;   /* commit frees the writer whatever the outcome */
-    }
-    weft_store_writer_abort(w);
-    weft_store_close(store);
-    return rc;
 }
 
 struct link_put {
@@ -809,6 +807,7 @@ int cmd_train_main(int argc, char **argv)
 
     weft_error err;
     weft_error_clear(&err);
+    int status = CMD_OK;
     struct inputs in;
     memset(&in, 0, sizeof in);
     struct results res;
@@ -864,12 +863,11 @@ int cmd_train_main(int argc, char **argv)
     }
     if (o.report && (rc = cmd_train_write_report(o.report, manifest, &err)) != WEFT_OK)
         goto done;
-    uint64_t version = 0;
     struct link_put lp = { in.g, &params, cfg.loss == WEFT_LOSS_LOGISTIC };
-    if ((rc = cmd_train_store(o.store, manifest, put_link, &lp, &version, &err)) != WEFT_OK)
+    cmd_train_outcome outcome;
+    if ((rc = cmd_train_store(&o, in.g, manifest, put_link, &lp, &outcome, &err)) != WEFT_OK)
         goto done;
-    printf("\nsnapshot %llu written to %s and promoted: it is live\n",
-           (unsigned long long)version, o.store);
+    status = cmd_train_report_outcome(&o, &outcome);
 done:
     json_decref(manifest);
     json_decref(inputs);
@@ -877,5 +875,5 @@ done:
     results_fini(&res);
     weft_link_params_fini(&params);
     inputs_fini(&in);
-    return rc == WEFT_OK ? CMD_OK : cmd_report_error(&err);
+    return rc == WEFT_OK ? status : cmd_report_error(&err);
 }

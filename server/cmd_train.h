@@ -70,6 +70,9 @@ struct train_opts {
     cmd_train_task task;
     const char *labels, *features, *split;
     bool is_raw_features;         /* --raw-features: no row normalisation */
+    /* the gate (cmd_train_store.c) */
+    bool is_force, is_no_promote;
+    double gate_tolerance;
     unsigned given_gcn;           /* GIVEN_GCN_* */
     weft_train_gcn_config gset;   /* the values of the given GCN flags */
 };
@@ -89,12 +92,41 @@ double cmd_train_float_json(float x);
 /** Write the report: the manifest's "metrics" with its "model" and "curve". */
 weft_err cmd_train_write_report(const char *path, const json_t *manifest, weft_error *err);
 
-/** Write @p manifest's model as the next snapshot of @p o->store and promote it; @p put
- *  writes the blobs. */
+/** Writes the blobs of the model(s) trained in this run into @p w. */
 typedef weft_err (*cmd_train_put_fn)(void *ctx, weft_store_writer *w, json_t *manifest,
                                      weft_error *err);
-weft_err cmd_train_store(const char *store, json_t *manifest, cmd_train_put_fn put, void *ctx,
-                         uint64_t *version, weft_error *err);
+
+/** What became of a stored snapshot. */
+typedef struct cmd_train_outcome {
+    uint64_t version;
+    bool is_live;          /**< promoted */
+    bool is_rejected;      /**< stored as rejected by the gate */
+    bool is_forced;        /**< promoted by --force past a failed gate */
+    char reason[320];      /**< why the gate refused it ("" when it passed) */
+} cmd_train_outcome;
+
+/**
+ * Store the run's model(s) as the next snapshot of o->store (server/cmd_train_store.c).
+ * @p manifest must hold "models": {"link"|"labels": {"model", "metrics", "curve"}} for each
+ * part trained in this run; their blobs are written by @p put. Then: the gate (each trained
+ * part beats its baselines, and its key metric, test MRR or accuracy, is at most
+ * o->gate_tolerance below the live snapshot's) is recorded as "gate"; the part not trained is
+ * carried over from the live snapshot when @p g's node table equals its own (else dropped,
+ * with a notice); the snapshot is committed live, rejected, or staged (--no-promote).
+ */
+weft_err cmd_train_store(const struct train_opts *o, const weft_graph *g, json_t *manifest,
+                         cmd_train_put_fn put, void *ctx, cmd_train_outcome *out,
+                         weft_error *err);
+
+/** Print what became of the snapshot. @return CMD_OK, or CMD_REJECTED when the gate refused it. */
+int cmd_train_report_outcome(const struct train_opts *o, const cmd_train_outcome *oc);
+
+/** Exit status of a run whose snapshot the gate refused (stored as rejected). */
+enum { CMD_REJECTED = 3 };
+
+/** Default --gate-tolerance: how far below the live key metric a new snapshot may fall
+ *  (absolute; our choice: about the spread of test MRR or accuracy between seeds). */
+#define CMD_TRAIN_GATE_TOLERANCE 0.01
 
 /* ---- cmd_train_gcn.c ---- */
 

@@ -623,8 +623,10 @@ static json_t *gcn_manifest(const struct gcn_run *r, const struct train_opts *o,
                               (json_int_t)g->n_self_loops);
     if (model)
         json_object_set_new(model, "seconds_per_epoch", json_real(r->result.seconds_per_epoch));
-    return json_pack("{s:o, s:o, s:o, s:o, s:O}", "model", model, "graph", graph, "inputs",
-                     inputs, "metrics", metrics_json(r, o), "curve", curve);
+    json_t *metrics = metrics_json(r, o);
+    return json_pack("{s:o, s:o, s:o, s:o, s:O, s:{s:{s:O, s:O, s:O}}}", "model", model,
+                     "graph", graph, "inputs", inputs, "metrics", metrics, "curve", curve,
+                     "models", "labels", "model", model, "metrics", metrics, "curve", curve);
 }
 
 static weft_err put_labels(void *ctx, weft_store_writer *w, json_t *manifest, weft_error *err)
@@ -638,6 +640,7 @@ int cmd_train_gcn_main(const struct train_opts *o)
 {
     weft_error err;
     weft_error_clear(&err);
+    int status = CMD_OK;
     struct gcn_run r;
     memset(&r, 0, sizeof r);
     json_t *manifest = NULL, *inputs = NULL;
@@ -676,11 +679,10 @@ int cmd_train_gcn_main(const struct train_opts *o)
     }
     if (o->report && (rc = cmd_train_write_report(o->report, manifest, &err)) != WEFT_OK)
         goto done;
-    uint64_t version = 0;
-    if ((rc = cmd_train_store(o->store, manifest, put_labels, &r, &version, &err)) != WEFT_OK)
+    cmd_train_outcome outcome;
+    if ((rc = cmd_train_store(o, r.g, manifest, put_labels, &r, &outcome, &err)) != WEFT_OK)
         goto done;
-    printf("\nsnapshot %llu written to %s and promoted: it is live\n",
-           (unsigned long long)version, o->store);
+    status = cmd_train_report_outcome(o, &outcome);
     printf("note: class probabilities are estimates and can be wrong; predictions about people "
            "need human review, and local law and data-protection rules decide their use\n");
 done:
@@ -688,5 +690,5 @@ done:
     json_decref(inputs);
     json_decref(pr.curve);
     gcn_run_fini(&r);
-    return rc == WEFT_OK ? CMD_OK : cmd_report_error(&err);
+    return rc == WEFT_OK ? status : cmd_report_error(&err);
 }

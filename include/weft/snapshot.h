@@ -142,4 +142,28 @@ weft_err weft_snapshot_put_labels(weft_store_writer *w, json_t *manifest, const 
                                   weft_sparse_norm norm, const weft_sparse *adj,
                                   const int32_t *y, const uint8_t *part, weft_error *err);
 
+/**
+ * True when @p snap's node table holds exactly the names of @p nodes, in the same order (so
+ * that every node id means the same node in both). False when it differs or is missing.
+ */
+bool weft_snapshot_same_nodes(const weft_snapshot *snap, const weft_names *nodes);
+
+/** The two model parts a snapshot may hold. */
+typedef enum weft_snapshot_part {
+    WEFT_SNAPSHOT_LINK = 1,     /**< blobs relations.*, entity, relation, known_out.*, known_in.* */
+    WEFT_SNAPSHOT_LABELS = 2    /**< blobs classes.*, label.* */
+} weft_snapshot_part;
+
+/** True when @p snap holds @p part (its manifest has the "link" or "labels" object). */
+bool weft_snapshot_has_part(const weft_snapshot *snap, weft_snapshot_part part);
+
+/**
+ * Copy model part @p part of @p from into writer @p w: its blobs byte for byte and its
+ * manifest object ("link" or "labels") into @p manifest. The node table is not copied: the
+ * caller checks weft_snapshot_same_nodes() and writes the nodes with the other part.
+ * @return WEFT_OK, WEFT_ERR_NOT_FOUND (@p from lacks the part), the writer's errors
+ */
+weft_err weft_snapshot_copy_part(weft_store_writer *w, const weft_snapshot *from,
+                                 weft_snapshot_part part, json_t *manifest, weft_error *err);
+
 #endif

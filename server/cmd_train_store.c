@@ -1,0 +1,220 @@
+/* weft train: writing the trained model as the next snapshot. The gate decides whether it
+ * goes live (it must beat its baselines and may not fall more than a tolerance below the live
+ * snapshot's key metric); the model part not trained in this run is carried over from the
+ * live snapshot when the node table is unchanged. */
+#include <jansson.h>
+#include <math.h>
+#include <stdio.h>
+#include <string.h>
+
+#include "cmd_train.h"
+#include "weft/snapshot.h"
+#include "weft/store.h"
+
+static const char *const part_names[3] = { NULL, "link", "labels" };
+/* The same in sentences. */
+static const char *const part_words[3] = { NULL, "link", "label" };
+
+/* The key metric of each part (what the gate compares): name in metrics.test, and its label. */
+static const char *const key_metric[3] = { NULL, "mrr", "accuracy" };
+static const char *const key_label[3] = { NULL, "test MRR", "test accuracy" };
+
+/* The record of part @p p of manifest @p m: its "models" entry, or for manifests written
+ * before there was one, the top-level model and metrics when they describe that part. */
+static json_t *part_record(const json_t *m, weft_snapshot_part p)
+{
+    json_t *rec = json_object_get(json_object_get(m, "models"), part_names[p]);
+    if (rec)
+        return json_incref(rec);
+    if (!json_object_get(m, part_names[p]))
+        return NULL;
+    const char *kind = json_string_value(json_object_get(json_object_get(m, "model"), "kind"));
+    bool is_labels = kind && !strcmp(kind, "gcn");
+    if (is_labels != (p == WEFT_SNAPSHOT_LABELS))
+        return NULL;
+    return json_pack("{s:O, s:O}", "model", json_object_get(m, "model"), "metrics",
+                     json_object_get(m, "metrics"));
+}
+
+static double key_value(const json_t *rec, weft_snapshot_part p)
+{
+    json_t *v = json_object_get(json_object_get(json_object_get(rec, "metrics"), "test"),
+                                key_metric[p]);
+    return json_is_number(v) ? json_number_value(v) : NAN;
+}
+
+/* Gate one trained part against the live snapshot's record of it (NULL: none). Appends its
+ * check to @p checks; on failure writes the reason into @p reason (if still empty). */
+static bool gate_part(const json_t *mine, const json_t *live, weft_snapshot_part p,
+                      double tolerance, json_t *checks, char *reason, size_t cap)
+{
+    json_t *beats_j = json_object_get(json_object_get(mine, "metrics"), "beats_baselines");
+    bool beats = json_is_true(beats_j);
+    double value = key_value(mine, p), live_value = live ? key_value(live, p) : NAN;
+    bool is_ok = beats;
+    char why[256] = "";
+    if (!beats)
+        snprintf(why, sizeof why, "the %s model does not beat its baselines on test",
+                 part_words[p]);
+    else if (!isnan(live_value) && !(value >= live_value - tolerance)) {
+        is_ok = false;
+        snprintf(why, sizeof why, "%s %.4f is more than %g below the live snapshot's %.4f",
+                 key_label[p], value, tolerance, live_value);
+    }
+    json_t *c = json_pack("{s:s, s:s, s:f, s:b, s:b}", "part", part_names[p], "metric",
+                          key_metric[p], "value", isnan(value) ? 0.0 : value,
+                          "beats_baselines", beats, "passed", is_ok);
+    if (c && !isnan(live_value))
+        json_object_set_new(c, "live_value", json_real(live_value));
+    if (c && !is_ok)
+        json_object_set_new(c, "reason", json_string(why));
+    json_array_append_new(checks, c);
+    if (!is_ok && !reason[0])
+        snprintf(reason, cap, "%s", why);
+    return is_ok;
+}
+
+/* The live snapshot, or NULL when there is none (or it cannot be opened: then it is as if
+ * there were none, with a warning, so that a damaged live snapshot never blocks a fix). */
+static weft_snapshot *open_live(weft_store *s, uint64_t *live)
+{
+    weft_error err;
+    weft_snapshot *snap = NULL;
+    uint64_t prev;
+    if (weft_store_head(s, live, &prev, &err) != WEFT_OK || *live == 0)
+        return NULL;
+    if (weft_snapshot_open(s, *live, &snap, &err) != WEFT_OK) {
+        fprintf(stderr, "weft: warning: the live snapshot %llu cannot be read (%s): no "
+                        "comparison, nothing carried over\n", (unsigned long long)*live,
+                err.msg);
+        return NULL;
+    }
+    return snap;
+}
+
+/* Carry over the part this run did not train from @p live when the node table is unchanged;
+ * otherwise say it is dropped. */
+static weft_err carry_over(weft_store_writer *w, const weft_snapshot *live, uint64_t live_v,
+                           const weft_graph *g, weft_snapshot_part p, json_t *manifest,
+                           json_t *models, weft_error *err)
+{
+    if (!live || !weft_snapshot_has_part(live, p))
+        return WEFT_OK;
+    if (!weft_snapshot_same_nodes(live, &g->nodes)) {
+        fflush(stdout);
+        fprintf(stderr, "weft: notice: the live snapshot %llu's %s model is dropped: its node "
+                        "table differs from this run's (retrain it on the new graph)\n",
+                (unsigned long long)live_v, part_words[p]);
+        return WEFT_OK;
+    }
+    weft_err rc = weft_snapshot_copy_part(w, live, p, manifest, err);
+    if (rc != WEFT_OK)
+        return rc;
+    json_t *rec = part_record(weft_snapshot_manifest(live), p);
+    json_t *copy = rec ? json_deep_copy(rec) : json_object();
+    json_decref(rec);
+    json_t *from = json_object_get(copy, "carried_from");
+    if (!copy || (!from && json_object_set_new(copy, "carried_from", json_integer(
+                                                   (json_int_t)live_v))) ||
+        json_object_set_new(models, part_names[p], copy))
+        return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory carrying a model over");
+    printf("the live snapshot %llu's %s model is carried over (same node table)\n",
+           (unsigned long long)live_v, part_words[p]);
+    return WEFT_OK;
+}
+
+weft_err cmd_train_store(const struct train_opts *o, const weft_graph *g, json_t *manifest,
+                         cmd_train_put_fn put, void *ctx, cmd_train_outcome *out,
+                         weft_error *err)
+{
+    weft_store *store = NULL;
+    weft_store_writer *w = NULL;
+    weft_snapshot *live = NULL;
+    uint64_t live_v = 0;
+    json_t *models = json_object_get(manifest, "models");
+    json_t *gate = json_pack("{s:b, s:f, s:[]}", "passed", true, "tolerance",
+                             o->gate_tolerance, "checks");
+    memset(out, 0, sizeof *out);
+    weft_err rc = WEFT_OK;
+    if (!json_is_object(models) || !gate) {
+        rc = weft_error_set(err, WEFT_ERR_INVALID, "internal: manifest without models");
+        goto done;
+    }
+    if ((rc = weft_store_open(o->store, WEFT_STORE_CREATE, 0, &store, err)) != WEFT_OK)
+        goto done;
+    live = open_live(store, &live_v);
+
+    /* The gate: every part trained in this run must pass. */
+    bool passed = true;
+    for (int p = WEFT_SNAPSHOT_LINK; p <= WEFT_SNAPSHOT_LABELS; p++) {
+        json_t *mine = json_object_get(models, part_names[p]);
+        if (!mine)
+            continue;
+        json_t *theirs = live ? part_record(weft_snapshot_manifest(live), p) : NULL;
+        passed &= gate_part(mine, theirs, p, o->gate_tolerance,
+                            json_object_get(gate, "checks"), out->reason, sizeof out->reason);
+        json_decref(theirs);
+    }
+    json_object_set_new(gate, "passed", json_boolean(passed));
+    if (live)
+        json_object_set_new(gate, "compared_with", json_integer((json_int_t)live_v));
+    if (!passed) {
+        json_object_set_new(gate, "reason", json_string(out->reason));
+        if (o->is_force)
+            json_object_set_new(gate, "forced", json_true());
+    }
+    if (json_object_set(manifest, "gate", gate)) {
+        rc = weft_error_set(err, WEFT_ERR_NOMEM, "out of memory writing the manifest");
+        goto done;
+    }
+
+    if ((rc = weft_store_writer_open(store, &w, &out->version, err)) != WEFT_OK ||
+        (rc = put(ctx, w, manifest, err)) != WEFT_OK)
+        goto done;
+    for (int p = WEFT_SNAPSHOT_LINK; p <= WEFT_SNAPSHOT_LABELS; p++)
+        if (!json_object_get(models, part_names[p]) &&
+            (rc = carry_over(w, live, live_v, g, p, manifest, models, err)) != WEFT_OK)
+            goto done;
+    const char *it;
+    json_t *rec;
+    json_object_foreach(models, it, rec)
+        if (!json_object_get(rec, "carried_from"))
+            json_object_set_new(rec, "trained_in", json_integer((json_int_t)out->version));
+    /* The snapshot the live one would have to be rolled back to is live until this commits;
+     * release it first so the commit does not wait on our own reader. */
+    weft_snapshot_release(live);
+    live = NULL;
+    out->is_live = (passed || o->is_force) && !o->is_no_promote;
+    out->is_rejected = !passed && !o->is_force;
+    out->is_forced = !passed && o->is_force;
+    rc = weft_store_writer_commit(w, manifest, out->is_live,
+                                  out->is_rejected ? "rejected" : "staged", err);
+    w = NULL;   /* commit frees the writer whatever the outcome */
+done:
+    weft_store_writer_abort(w);
+    weft_snapshot_release(live);
+    weft_store_close(store);
+    json_decref(gate);
+    return rc;
+}
+
+int cmd_train_report_outcome(const struct train_opts *o, const cmd_train_outcome *oc)
+{
+    if (oc->is_live) {
+        printf("\nsnapshot %llu written to %s and promoted: it is live%s\n",
+               (unsigned long long)oc->version, o->store,
+               oc->is_forced ? " (forced past the gate)" : "");
+        if (oc->is_forced)
+            printf("the gate would have refused it: %s\n", oc->reason);
+        return CMD_OK;
+    }
+    if (oc->is_rejected) {
+        printf("\nsnapshot %llu written to %s as rejected: %s\nthe live snapshot is unchanged; "
+               "--force promotes anyway, --gate-tolerance X loosens the comparison\n",
+               (unsigned long long)oc->version, o->store, oc->reason);
+        return CMD_REJECTED;
+    }
+    printf("\nsnapshot %llu written to %s as staged (--no-promote)\n",
+           (unsigned long long)oc->version, o->store);
+    return CMD_OK;
+}
