@@ -116,10 +116,19 @@ static bool parse_named(const char *flag, const char *v, struct train_opts *o)
     bool ok = false;
     const char *known = "";
     if (!strcmp(flag, "--model")) {
-        o->task = !strcmp(v, "gcn") ? CMD_TRAIN_GCN
-                : !strcmp(v, "gcn-link") ? CMD_TRAIN_GCN_LINK : CMD_TRAIN_LINK;
-        ok = o->task != CMD_TRAIN_LINK || weft_model_kind_parse(v, &o->set.kind);
-        known = "dot, distmult, complex, gcn, gcn-link";
+        /* "KIND" or "KIND,gcn" / "gcn,KIND": a link model and a GCN in one run */
+        char first[32] = "";
+        const char *comma = strchr(v, ','), *link = v;
+        if (comma && (size_t)(comma - v) < sizeof first) {
+            memcpy(first, v, (size_t)(comma - v));
+            o->also_gcn = !strcmp(first, "gcn") || !strcmp(comma + 1, "gcn");
+            link = !strcmp(first, "gcn") ? comma + 1 : first;
+        }
+        o->task = !strcmp(link, "gcn") ? CMD_TRAIN_GCN
+                : !strcmp(link, "gcn-link") ? CMD_TRAIN_GCN_LINK : CMD_TRAIN_LINK;
+        ok = (!comma || (o->also_gcn && o->task != CMD_TRAIN_GCN)) &&
+             (o->task != CMD_TRAIN_LINK || weft_model_kind_parse(link, &o->set.kind));
+        known = "dot, distmult, complex, gcn, gcn-link, or a link model and gcn: distmult,gcn";
         o->given |= GIVEN_MODEL;
     } else if (!strcmp(flag, "--loss")) {
         ok = weft_train_loss_parse(v, &o->set.loss);
@@ -703,12 +712,15 @@ static json_t *build_manifest(const struct train_opts *o, const weft_train_link_
                      "models", "link", "model", model, "metrics", metrics, "curve", curve);
 }
 
-/* The report: the manifest's metrics with the model and the curve. */
+/* The report: the manifest's metrics with the model and the curve, and every model's record
+ * when the run trained two. */
 weft_err cmd_train_write_report(const char *path, const json_t *manifest, weft_error *err)
 {
     json_t *report = json_deep_copy(json_object_get(manifest, "metrics"));
+    json_t *models = json_object_get(manifest, "models");
     if (!report || json_object_set(report, "model", json_object_get(manifest, "model")) ||
-        json_object_set(report, "curve", json_object_get(manifest, "curve"))) {
+        json_object_set(report, "curve", json_object_get(manifest, "curve")) ||
+        (json_object_size(models) > 1 && json_object_set(report, "models", models))) {
         json_decref(report);
         return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory writing the report");
     }
@@ -721,13 +733,17 @@ struct link_put {
     const weft_graph *g;
     const weft_link_params *params;
     bool is_probability;
+    cmd_gcn_labels *labels;   /* --model X,gcn: the label model too; else NULL */
 };
 
 static weft_err put_link(void *ctx, weft_store_writer *w, json_t *manifest, weft_error *err)
 {
     const struct link_put *lp = ctx;
     weft_link_model model = weft_link_params_model(lp->params);
-    return weft_snapshot_put_link(w, manifest, lp->g, &model, lp->is_probability, err);
+    weft_err rc = weft_snapshot_put_link(w, manifest, lp->g, &model, lp->is_probability, err);
+    if (rc == WEFT_OK && lp->labels)
+        rc = cmd_train_gcn_labels_put(lp->labels, w, manifest, err);
+    return rc;
 }
 
 static void print_inputs(const struct inputs *in, const weft_train_link_config *c,
@@ -808,6 +824,7 @@ int cmd_train_main(int argc, char **argv)
     weft_error err;
     weft_error_clear(&err);
     int status = CMD_OK;
+    cmd_gcn_labels *labels = NULL;
     struct inputs in;
     memset(&in, 0, sizeof in);
     struct results res;
@@ -861,13 +878,24 @@ int cmd_train_main(int argc, char **argv)
         rc = weft_error_set(&err, WEFT_ERR_NOMEM, "out of memory building the manifest");
         goto done;
     }
+    if (o.also_gcn) {
+        json_t *entry = NULL;
+        if ((rc = cmd_train_gcn_labels(&o, in.g, &labels, &entry, &err)) != WEFT_OK)
+            goto done;
+        if (json_object_set_new(json_object_get(manifest, "models"), "labels", entry)) {
+            rc = weft_error_set(&err, WEFT_ERR_NOMEM, "out of memory building the manifest");
+            goto done;
+        }
+    }
     if (o.report && (rc = cmd_train_write_report(o.report, manifest, &err)) != WEFT_OK)
         goto done;
-    struct link_put lp = { in.g, &params, cfg.loss == WEFT_LOSS_LOGISTIC };
+    struct link_put lp = { in.g, &params, cfg.loss == WEFT_LOSS_LOGISTIC, labels };
     cmd_train_outcome outcome;
     if ((rc = cmd_train_store(&o, in.g, manifest, put_link, &lp, &outcome, &err)) != WEFT_OK)
         goto done;
     status = cmd_train_report_outcome(&o, &outcome);
+    if (labels)
+        cmd_train_gcn_caution();
 done:
     json_decref(manifest);
     json_decref(inputs);
@@ -875,5 +903,6 @@ done:
     results_fini(&res);
     weft_link_params_fini(&params);
     inputs_fini(&in);
+    cmd_train_gcn_labels_free(labels);
     return rc == WEFT_OK ? status : cmd_report_error(&err);
 }

@@ -68,6 +68,7 @@ struct train_opts {
     weft_train_link_config set;   /* the values of the given flags */
     /* GCN (cmd_train_gcn.c) */
     cmd_train_task task;
+    bool also_gcn;                /* --model X,gcn: a GCN on the labels as well */
     const char *labels, *features, *split;
     bool is_raw_features;         /* --raw-features: no row normalisation */
     /* the gate (cmd_train_store.c) */
@@ -141,6 +142,24 @@ void cmd_train_gcn_help(void);
 
 /** `weft train --model gcn`: the whole run. @return the exit status. */
 int cmd_train_gcn_main(const struct train_opts *o);
+
+/** The labels half of a run that trains a link model and a GCN (`--model distmult,gcn`). */
+typedef struct gcn_run cmd_gcn_labels;
+
+/**
+ * Train the GCN of `--model X,gcn` on the final graph @p g of the link half (borrowed; the
+ * same node table), printing as `--model gcn` does.
+ * @param out    on success, the trained labels (cmd_train_gcn_labels_free())
+ * @param entry  on success, its manifest record {"model", "metrics", "curve"} (a new reference)
+ */
+weft_err cmd_train_gcn_labels(const struct train_opts *o, weft_graph *g, cmd_gcn_labels **out,
+                              json_t **entry, weft_error *err);
+/** A cmd_train_put_fn writing the label blobs; @p ctx is a cmd_gcn_labels. */
+weft_err cmd_train_gcn_labels_put(void *ctx, weft_store_writer *w, json_t *manifest,
+                                  weft_error *err);
+void cmd_train_gcn_labels_free(cmd_gcn_labels *l);
+/** Print the caution every run that stores class probabilities ends with. */
+void cmd_train_gcn_caution(void);
 
 /** The GCN configuration of @p o (defaults, then the flags given). */
 void cmd_train_gcn_configure(const struct train_opts *o, bool is_link, weft_train_gcn_config *c);

@@ -31,7 +31,9 @@
 void cmd_train_gcn_help(void)
 {
     printf("graph convolutional networks (--model gcn: node classification; --model gcn-link:\n"
-           "GCN layers mix node embeddings, a dot or DistMult decoder scores links):\n"
+           "GCN layers mix node embeddings, a dot or DistMult decoder scores links; --model\n"
+           "KIND,gcn trains a link model and a GCN into one snapshot: the shared flags below\n"
+           "then tune the link model, the GCN flags both GCNs, and --holdout the edges):\n"
            "  --labels FILE      node<TAB>class; needed by gcn; unlabelled nodes are fine\n"
            "  --split FILE       node<TAB>train|valid|test for the labelled nodes; without it\n"
            "                     --holdout V,T holds out labelled nodes by class (default %g,%g)\n"
@@ -179,6 +181,14 @@ static const struct {
 
 int cmd_train_gcn_check(const struct train_opts *o)
 {
+    if (o->also_gcn) {   /* a link model and a GCN: the link flags are the link model's */
+        if (!o->labels)
+            return cmd_usage_error(SUB, "--model %s,gcn needs --labels FILE",
+                                   o->task == CMD_TRAIN_GCN_LINK ? "gcn-link" : "KIND");
+        if (o->is_raw_features && !o->features)
+            return cmd_usage_error(SUB, "--raw-features needs --features FILE");
+        return CMD_OK;
+    }
     bool is_gcn = o->task != CMD_TRAIN_LINK;
     if (!is_gcn) {
         if (o->given_gcn || o->labels || o->features || o->split || o->is_raw_features)
@@ -225,6 +235,8 @@ void cmd_train_gcn_configure(const struct train_opts *o, bool is_link, weft_trai
     c->weight_decay = f & GIVEN_GCN_WEIGHT_DECAY ? g->weight_decay : c->weight_decay;
     c->decoder = f & GIVEN_GCN_DECODER ? g->decoder : c->decoder;
     const weft_train_link_config *s = &o->set;
+    if (o->also_gcn && !is_link)   /* the shared flags tune the link model of the run */
+        l &= GIVEN_SEED | GIVEN_THREADS;
     if (l & GIVEN_DIM) {
         if (is_link)
             c->out_dim = s->dim;
@@ -419,6 +431,7 @@ done:
 
 struct gcn_run {
     weft_graph *g;
+    bool owns_graph;             /* false when the link half of the run lent it */
     weft_sparse x, adj, plain;   /* features, A', A without self-loops (label propagation) */
     weft_labels labels;
     uint8_t *part;
@@ -436,7 +449,8 @@ static const char *const scorer_names[3] = { "gcn", "majority", "label_propagati
 
 static void gcn_run_fini(struct gcn_run *r)
 {
-    weft_graph_free(r->g);
+    if (r->owns_graph)
+        weft_graph_free(r->g);
     weft_sparse_fini(&r->x);
     weft_sparse_fini(&r->adj);
     weft_sparse_fini(&r->plain);
@@ -450,8 +464,9 @@ static void gcn_run_fini(struct gcn_run *r)
             weft_classify_metrics_fini(&r->metrics[i][j]);
 }
 
-static weft_err load_inputs(const struct train_opts *o, struct gcn_run *r, weft_error *err)
+static weft_err load_graph(const struct train_opts *o, struct gcn_run *r, weft_error *err)
 {
+    r->owns_graph = true;
     weft_err rc = weft_graph_new(o->is_undirected ? WEFT_GRAPH_UNDIRECTED : 0, &r->g, err);
     for (size_t i = 0; rc == WEFT_OK && i < o->n_edges; i++)
         rc = weft_graph_load_edges(r->g, o->edges[i], err);
@@ -460,16 +475,25 @@ static weft_err load_inputs(const struct train_opts *o, struct gcn_run *r, weft_
     if (rc != WEFT_OK)
         return rc;
     const weft_graph *g = r->g;
-    weft_names_view nodes = weft_names_as_view(&g->nodes);
     printf("graph: %zu nodes, %zu edges, %zu relations (%zu duplicates dropped)\n", g->nodes.n,
            g->n_edges, g->relations.n, g->n_duplicates);
+    return WEFT_OK;
+}
+
+/* Features, labels, split and adjacencies over r->g. */
+static weft_err load_node_data(const struct train_opts *o, struct gcn_run *r, weft_error *err)
+{
+    const weft_graph *g = r->g;
+    weft_names_view nodes = weft_names_as_view(&g->nodes);
+    weft_err rc;
     if ((rc = load_features(o, g, &r->x, err)) != WEFT_OK ||
         (rc = weft_labels_load(o->labels, &nodes, &r->labels, err)) != WEFT_OK)
         return rc;
     if (!(r->part = weft_alloc_array(g->nodes.n, 1)))
         return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory for the split");
-    double fv = o->has_holdout ? o->frac_valid : DEFAULT_LABEL_VALID;
-    double ft = o->has_holdout ? o->frac_test : DEFAULT_LABEL_TEST;
+    bool is_label_holdout = o->has_holdout && o->task == CMD_TRAIN_GCN;   /* else: edges' */
+    double fv = is_label_holdout ? o->frac_valid : DEFAULT_LABEL_VALID;
+    double ft = is_label_holdout ? o->frac_test : DEFAULT_LABEL_TEST;
     rc = o->split ? weft_labels_read_split(o->split, &nodes, &r->labels, r->part, err)
                   : weft_labels_split(&r->labels, fv, ft, r->cfg.seed, r->part, err);
     if (rc != WEFT_OK)
@@ -629,11 +653,88 @@ static json_t *gcn_manifest(const struct gcn_run *r, const struct train_opts *o,
                      "models", "labels", "model", model, "metrics", metrics, "curve", curve);
 }
 
-static weft_err put_labels(void *ctx, weft_store_writer *w, json_t *manifest, weft_error *err)
+/* Node data, training, baselines and metrics over r->g, printed as they come. */
+static weft_err train_labels(const struct train_opts *o, struct gcn_run *r,
+                             struct gcn_progress *pr, weft_error *err)
+{
+    cmd_train_gcn_configure(o, false, &r->cfg);
+    weft_err rc = load_node_data(o, r, err);
+    if (rc != WEFT_OK)
+        return rc;
+    print_gcn_config(&r->cfg, false, o->features != NULL, r->x.n_cols);
+    set_blas_threads(&r->cfg, r->g->nodes.n, r->labels.classes.n);
+    rc = weft_train_gcn_classify(&r->cfg, &r->adj, o->features ? &r->x : NULL, r->labels.y,
+                                 r->part, r->labels.classes.n, on_gcn_epoch, pr, &r->model,
+                                 &r->result, err);
+    if (pr->is_tty && !o->is_quiet)
+        fputc('\n', stderr);
+    if (rc == WEFT_OK && pr->is_nomem)
+        rc = weft_error_set(err, WEFT_ERR_NOMEM, "out of memory recording the curve");
+    if (rc != WEFT_OK || (rc = run_baselines(r, err)) != WEFT_OK || (rc = measure(r, err)) != WEFT_OK)
+        return rc;
+    print_gcn_run(&r->result);
+    if (r->has_metrics[0][0])
+        print_split(r, 0);
+    print_split(r, 1);
+    print_classes(r);
+    return WEFT_OK;
+}
+
+static const char caution_note[] =
+    "note: class probabilities are estimates and can be wrong; predictions about people need "
+    "human review, and local law and data-protection rules decide their use\n";
+
+weft_err cmd_train_gcn_labels(const struct train_opts *o, weft_graph *g, cmd_gcn_labels **out,
+                              json_t **entry, weft_error *err)
+{
+    struct gcn_run *r = calloc(1, sizeof *r);
+    struct gcn_progress pr = { isatty(STDERR_FILENO), o->is_quiet, false, json_array() };
+    weft_err rc = r && pr.curve ? WEFT_OK
+                                : weft_error_set(err, WEFT_ERR_NOMEM, "out of memory");
+    if (rc == WEFT_OK) {
+        r->g = g;
+        printf("\nlabels, on the same node table:\n");
+        rc = train_labels(o, r, &pr, err);
+    }
+    json_t *e = NULL;
+    if (rc == WEFT_OK) {
+        json_t *model = cmd_train_gcn_model_json(&r->cfg, false, r->result.epochs_run,
+                                                 r->result.is_early_stop,
+                                                 o->features ? "features" : "embedding");
+        e = json_pack("{s:o, s:o, s:O}", "model", model, "metrics", metrics_json(r, o),
+                      "curve", pr.curve);
+        if (!e)
+            rc = weft_error_set(err, WEFT_ERR_NOMEM, "out of memory building the manifest");
+    }
+    json_decref(pr.curve);
+    if (rc != WEFT_OK) {
+        cmd_train_gcn_labels_free(r);
+        return rc;
+    }
+    *out = r;
+    *entry = e;
+    return WEFT_OK;
+}
+
+weft_err cmd_train_gcn_labels_put(void *ctx, weft_store_writer *w, json_t *manifest,
+                                  weft_error *err)
 {
     const struct gcn_run *r = ctx;
     return weft_snapshot_put_labels(w, manifest, r->g, &r->labels.classes, &r->model,
                                     r->cfg.norm, &r->adj, r->labels.y, r->part, err);
+}
+
+void cmd_train_gcn_labels_free(cmd_gcn_labels *r)
+{
+    if (!r)
+        return;
+    gcn_run_fini(r);
+    free(r);
+}
+
+void cmd_train_gcn_caution(void)
+{
+    fputs(caution_note, stdout);
 }
 
 int cmd_train_gcn_main(const struct train_opts *o)
@@ -645,32 +746,13 @@ int cmd_train_gcn_main(const struct train_opts *o)
     memset(&r, 0, sizeof r);
     json_t *manifest = NULL, *inputs = NULL;
     struct gcn_progress pr = { isatty(STDERR_FILENO), o->is_quiet, false, json_array() };
-    cmd_train_gcn_configure(o, false, &r.cfg);
     weft_err rc = pr.curve ? WEFT_OK : weft_error_set(&err, WEFT_ERR_NOMEM, "out of memory");
     if (rc == WEFT_OK)
-        rc = load_inputs(o, &r, &err);
+        rc = load_graph(o, &r, &err);
     if (rc == WEFT_OK && !(inputs = cmd_train_fingerprints(o, &err)))
         rc = err.code ? err.code : weft_error_set(&err, WEFT_ERR_NOMEM, "out of memory");
-    if (rc != WEFT_OK)
+    if (rc != WEFT_OK || (rc = train_labels(o, &r, &pr, &err)) != WEFT_OK)
         goto done;
-    print_gcn_config(&r.cfg, false, o->features != NULL, r.x.n_cols);
-    set_blas_threads(&r.cfg, r.g->nodes.n, r.labels.classes.n);
-    rc = weft_train_gcn_classify(&r.cfg, &r.adj, o->features ? &r.x : NULL, r.labels.y, r.part,
-                                 r.labels.classes.n, on_gcn_epoch, &pr, &r.model, &r.result,
-                                 &err);
-    if (pr.is_tty && !o->is_quiet)
-        fputc('\n', stderr);
-    if (rc == WEFT_OK && pr.is_nomem)
-        rc = weft_error_set(&err, WEFT_ERR_NOMEM, "out of memory recording the curve");
-    if (rc != WEFT_OK || (rc = run_baselines(&r, &err)) != WEFT_OK ||
-        (rc = measure(&r, &err)) != WEFT_OK)
-        goto done;
-    print_gcn_run(&r.result);
-    if (r.has_metrics[0][0])
-        print_split(&r, 0);
-    print_split(&r, 1);
-    print_classes(&r);
-
     manifest = gcn_manifest(&r, o, pr.curve, inputs);
     inputs = NULL;   /* the manifest owns it now */
     if (!manifest) {
@@ -680,11 +762,11 @@ int cmd_train_gcn_main(const struct train_opts *o)
     if (o->report && (rc = cmd_train_write_report(o->report, manifest, &err)) != WEFT_OK)
         goto done;
     cmd_train_outcome outcome;
-    if ((rc = cmd_train_store(o, r.g, manifest, put_labels, &r, &outcome, &err)) != WEFT_OK)
+    if ((rc = cmd_train_store(o, r.g, manifest, cmd_train_gcn_labels_put, &r, &outcome,
+                              &err)) != WEFT_OK)
         goto done;
     status = cmd_train_report_outcome(o, &outcome);
-    printf("note: class probabilities are estimates and can be wrong; predictions about people "
-           "need human review, and local law and data-protection rules decide their use\n");
+    cmd_train_gcn_caution();
 done:
     json_decref(manifest);
     json_decref(inputs);
