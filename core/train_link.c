@@ -207,6 +207,13 @@ static weft_err trainer_init(struct trainer *t, const weft_train_link_config *cf
     weft_rng_seed(&t->rng, cfg->seed);
     for (size_t i = 0; i < t->n_param; i++)
         t->p.slab[i] = cfg->init_scale * gaussian(&t->rng);
+    const weft_train_warm *w = cfg->warm;
+    for (size_t v = 0; w && w->entity && v < n_ent; v++)
+        if (w->has_entity[v])
+            memcpy(t->p.entity + v * t->d, w->entity + v * t->d, t->d * sizeof(float));
+    for (size_t r = 0; w && w->relation && t->p.relation && r < t->n_rel_rows; r++)
+        if (w->has_relation[r])
+            memcpy(t->p.relation + r * t->d, w->relation + r * t->d, t->d * sizeof(float));
     return WEFT_OK;
 }
 

@@ -78,7 +78,11 @@ static void print_help(void)
            "node table is the same.\n"
            "  --gate-tolerance X how far below the live key metric is still accepted (%g)\n"
            "  --force            promote even when the gate refuses (recorded in the manifest)\n"
-           "  --no-promote       store the snapshot as staged; the live one stays\n\n",
+           "  --no-promote       store the snapshot as staged; the live one stays\n"
+           "  --warm-start       link models: start from the live snapshot's embeddings for the\n"
+           "                     nodes and relations it knows (by name); new ones start fresh.\n"
+           "                     Needs the same model kind, dimension and loss, else a notice\n"
+           "                     and a fresh start\n\n",
            DEFAULT_FRAC_VALID, DEFAULT_FRAC_TEST, CMD_TRAIN_GATE_TOLERANCE);
     cmd_train_gcn_help();
 }
@@ -279,6 +283,8 @@ static int parse_opts(int argc, char **argv, struct train_opts *o)
             o->is_force = true;
         } else if (!strcmp(argv[i], "--no-promote")) {
             o->is_no_promote = true;
+        } else if (!strcmp(argv[i], "--warm-start")) {
+            o->is_warm_start = true;
         } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--gate-tolerance", &bad))) {
             if (!cmd_parse_double(SUB, "--gate-tolerance", v, 0.0, 1.0, &o->gate_tolerance))
                 return CMD_USAGE;
@@ -772,6 +778,111 @@ static void print_run(const weft_train_link_config *c, const weft_train_result *
     printf("%s\n", run->is_out_of_time ? " (time budget reached)" : "");
 }
 
+/* ---- warm start ---- */
+
+/* Starting rows for a link model, copied out of the live snapshot (the store is closed again
+ * before training: one LMDB environment per process). */
+struct warm {
+    weft_train_warm w;
+    float *entity, *relation;
+    uint8_t *has_entity, *has_relation;
+};
+
+static void warm_fini(struct warm *w)
+{
+    free(w->entity);
+    free(w->relation);
+    free(w->has_entity);
+    free(w->has_relation);
+}
+
+/* Copy the rows of the live link model whose node or relation name is in @p g. A live model
+ * of another kind, dimension or relation layout gives a notice and no warm start. */
+static weft_err warm_from_live(const struct train_opts *o, const weft_train_link_config *c,
+                               const weft_graph *g, struct warm *out, weft_error *err)
+{
+    weft_store *s = NULL;
+    weft_snapshot *snap = NULL;
+    uint64_t live = 0, prev;
+    weft_link_view v;
+    memset(out, 0, sizeof *out);
+    weft_err rc = weft_store_open(o->store, WEFT_STORE_READONLY, 0, &s, err);
+    if (rc == WEFT_ERR_NOT_FOUND || rc == WEFT_ERR_IO) {
+        printf("warm start: no store yet, starting fresh\n");
+        return WEFT_OK;
+    }
+    if (rc == WEFT_OK)
+        rc = weft_store_head(s, &live, &prev, err);
+    if (rc == WEFT_OK && live == 0) {
+        printf("warm start: no live snapshot, starting fresh\n");
+        goto done;
+    }
+    if (rc == WEFT_OK)
+        rc = weft_snapshot_open(s, live, &snap, err);
+    if (rc != WEFT_OK)
+        goto done;
+    if (weft_snapshot_link_view(snap, &v, NULL) != WEFT_OK) {
+        printf("warm start: snapshot %llu has no link model, starting fresh\n",
+               (unsigned long long)live);
+        goto done;
+    }
+    bool is_reciprocal = c->kind != WEFT_LINK_DOT && c->loss == WEFT_LOSS_SOFTMAX;
+    if (v.kind != c->kind || v.dim != c->dim || v.model.has_reciprocal != is_reciprocal) {
+        fflush(stdout);
+        fprintf(stderr, "weft: notice: no warm start: the live snapshot %llu holds %s of "
+                        "dimension %zu%s, this run trains %s of dimension %zu%s\n",
+                (unsigned long long)live, weft_model_kind_name(v.kind), v.dim,
+                v.model.has_reciprocal ? " with reciprocal relations" : "",
+                weft_model_kind_name(c->kind), c->dim,
+                is_reciprocal ? " with reciprocal relations" : "");
+        goto done;
+    }
+    size_t n = g->nodes.n, d = c->dim, n_rel = g->relations.n;
+    size_t rel_rows = c->kind == WEFT_LINK_DOT ? 0 : n_rel * (is_reciprocal ? 2 : 1);
+    out->entity = weft_alloc_array(n, d * sizeof *out->entity);
+    out->has_entity = weft_calloc_array(n, 1);
+    out->relation = weft_alloc_array(rel_rows + 1, d * sizeof *out->relation);
+    out->has_relation = weft_calloc_array(rel_rows + 1, 1);
+    if (!out->entity || !out->has_entity || !out->relation || !out->has_relation) {
+        rc = weft_error_set(err, WEFT_ERR_NOMEM, "out of memory for the warm start");
+        goto done;
+    }
+    weft_names_view nodes = weft_names_as_view(&g->nodes);
+    weft_names_view rels = weft_names_as_view(&g->relations);
+    size_t kept = 0, kept_rel = 0;
+    for (uint32_t u = 0; u < n; u++) {
+        size_t len;
+        const char *name = weft_names_get(&nodes, u, &len);
+        uint32_t old;
+        if (weft_names_find(&v.nodes, name, len, &old)) {
+            memcpy(out->entity + (size_t)u * d, v.entity + (size_t)old * d, d * sizeof(float));
+            out->has_entity[u] = 1;
+            kept++;
+        }
+    }
+    for (uint32_t r = 0; rel_rows && r < n_rel; r++) {
+        size_t len;
+        const char *name = weft_names_get(&rels, r, &len);
+        uint32_t old;
+        if (!weft_names_find(&v.relations, name, len, &old))
+            continue;
+        for (size_t k = 0; k < (is_reciprocal ? 2u : 1u); k++) {
+            size_t to = r + k * n_rel, from = old + k * v.n_relations;
+            memcpy(out->relation + to * d, v.model.relation + from * d, d * sizeof(float));
+            out->has_relation[to] = 1;
+        }
+        kept_rel++;
+    }
+    out->w = (weft_train_warm){ out->entity, out->has_entity, rel_rows ? out->relation : NULL,
+                                rel_rows ? out->has_relation : NULL };
+    printf("warm start from snapshot %llu: %zu of %zu nodes and %zu of %zu relations keep "
+           "their embeddings\n", (unsigned long long)live, kept, n, kept_rel, n_rel);
+done:
+    weft_snapshot_release(snap);
+    weft_store_close(s);
+    return rc;
+}
+
 static weft_err train_and_evaluate(const struct train_opts *o, struct inputs *in,
                                    weft_train_link_config *cfg,
                                    const weft_train_gcn_config *gcfg, struct results *res,
@@ -825,6 +936,7 @@ int cmd_train_main(int argc, char **argv)
     weft_error_clear(&err);
     int status = CMD_OK;
     cmd_gcn_labels *labels = NULL;
+    struct warm warm = { 0 };   /* before any goto: released at done */
     struct inputs in;
     memset(&in, 0, sizeof in);
     struct results res;
@@ -858,6 +970,11 @@ int cmd_train_main(int argc, char **argv)
     if (!(inputs = cmd_train_fingerprints(&o, &err))) {
         rc = err.code ? err.code : weft_error_set(&err, WEFT_ERR_NOMEM, "out of memory");
         goto done;
+    }
+    if (o.is_warm_start && !is_gcn_link) {
+        if ((rc = warm_from_live(&o, &cfg, in.g, &warm, &err)) != WEFT_OK)
+            goto done;
+        cfg.warm = warm.entity ? &warm.w : NULL;
     }
     if (!is_gcn_link)
         print_config(&cfg);
@@ -904,5 +1021,6 @@ done:
     weft_link_params_fini(&params);
     inputs_fini(&in);
     cmd_train_gcn_labels_free(labels);
+    warm_fini(&warm);
     return rc == WEFT_OK ? status : cmd_report_error(&err);
 }

@@ -73,6 +73,7 @@ struct train_opts {
     bool is_raw_features;         /* --raw-features: no row normalisation */
     /* the gate (cmd_train_store.c) */
     bool is_force, is_no_promote;
+    bool is_warm_start;           /* --warm-start: link rows from the live snapshot */
     double gate_tolerance;
     unsigned given_gcn;           /* GIVEN_GCN_* */
     weft_train_gcn_config gset;   /* the values of the given GCN flags */

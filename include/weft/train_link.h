@@ -42,6 +42,19 @@ bool weft_train_optim_parse(const char *s, weft_optim *out);
 const char *weft_train_reg_name(weft_reg v);
 bool weft_train_reg_parse(const char *s, weft_reg *out);
 
+/**
+ * A warm start: rows to begin from instead of random ones (nodes and relations that persist
+ * from an earlier model keep their embeddings; the others start fresh). Indexed by the ids of
+ * the graph being trained; the layout of weft_link_params (relation rows r, then with
+ * reciprocal relations r + n_relations).
+ */
+typedef struct weft_train_warm {
+    const float *entity;           /**< (n_entities, dim) */
+    const uint8_t *has_entity;     /**< (n_entities): 1 where entity holds a starting row */
+    const float *relation;         /**< (relation rows, dim), or NULL */
+    const uint8_t *has_relation;   /**< (relation rows), or NULL */
+} weft_train_warm;
+
 /** Hyper-parameters of one training run. */
 typedef struct weft_train_link_config {
     weft_link_kind kind;
@@ -64,6 +77,9 @@ typedef struct weft_train_link_config {
     size_t patience;     /**< evaluations without a better validation MRR before stopping; 0: never */
     double max_seconds;  /**< training time budget: no epoch starts that would end past it, as
                               judged by the last epoch's time; 0: none */
+    const weft_train_warm *warm;   /**< NULL: every row starts random. Borrowed for the run.
+                                        The random rows are drawn either way, so a warm run's
+                                        fresh rows equal a cold run's with the same seed. */
 } weft_train_link_config;
 
 /**
