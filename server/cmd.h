@@ -2,6 +2,7 @@
 #ifndef WEFT_SERVER_CMD_H
 #define WEFT_SERVER_CMD_H
 
+#include <stdarg.h>
 #include <stdbool.h>
 #include <stddef.h>
 #include <stdint.h>
@@ -22,6 +23,7 @@ int cmd_inspect_main(int argc, char **argv);
 int cmd_train_main(int argc, char **argv);
 int cmd_serve_main(int argc, char **argv);
 int cmd_eval_main(int argc, char **argv);
+int cmd_worker_main(int argc, char **argv);
 
 /** Print "weft: <err->msg>" on stderr; returns CMD_FAIL. */
 int cmd_report_error(const weft_error *err);
@@ -47,6 +49,10 @@ bool cmd_parse_double(const char *sub, const char *flag, const char *text, doubl
  */
 const char *cmd_opt_value(const char *sub, int argc, char **argv, int *i, const char *name,
                           bool *bad);
+
+/** Log a line "<UTC time> weft <who>: <message>" on stderr (serve, worker). */
+void cmd_log(const char *who, const char *fmt, ...) __attribute__((format(printf, 2, 3)));
+void cmd_vlog(const char *who, const char *fmt, va_list ap) __attribute__((format(printf, 2, 0)));
 
 /** Online CPUs (at least 1): the default thread count of train and eval. */
 size_t cmd_online_cpus(void);

@@ -7,6 +7,7 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <time.h>
 #include <unistd.h>
 
 int cmd_report_error(const weft_error *err)
@@ -79,4 +80,25 @@ size_t cmd_online_cpus(void)
 {
     long n = sysconf(_SC_NPROCESSORS_ONLN);
     return n > 0 ? (size_t)n : 1;
+}
+
+void cmd_vlog(const char *who, const char *fmt, va_list ap)
+{
+    char text[512];
+    vsnprintf(text, sizeof text, fmt, ap);
+    char stamp[32] = "-";
+    time_t now = time(NULL);
+    struct tm tm;
+    if (gmtime_r(&now, &tm))
+        strftime(stamp, sizeof stamp, "%Y-%m-%dT%H:%M:%SZ", &tm);
+    fprintf(stderr, "%s weft %s: %s\n", stamp, who, text);
+    fflush(stderr);
+}
+
+void cmd_log(const char *who, const char *fmt, ...)
+{
+    va_list ap;
+    va_start(ap, fmt);
+    cmd_vlog(who, fmt, ap);
+    va_end(ap);
 }

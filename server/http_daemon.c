@@ -11,6 +11,8 @@
 #include <time.h>
 #include <unistd.h>
 
+#include "cmd.h"
+
 struct http_daemon {
     struct MHD_Daemon *mhd;
     const http_settings *cfg;
@@ -25,17 +27,10 @@ static const char fallback_body[] =
 
 void http_log(const char *fmt, ...)
 {
-    char text[512];
     va_list ap;
     va_start(ap, fmt);
-    vsnprintf(text, sizeof text, fmt, ap);
+    cmd_vlog("serve", fmt, ap);
     va_end(ap);
-    char stamp[32] = "-";
-    time_t now = time(NULL);
-    struct tm tm;
-    if (gmtime_r(&now, &tm))
-        strftime(stamp, sizeof stamp, "%Y-%m-%dT%H:%M:%SZ", &tm);
-    fprintf(stderr, "%s weft serve: %s\n", stamp, text);
 }
 
 static void log_mhd(void *cls, const char *fmt, va_list ap)

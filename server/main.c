@@ -15,6 +15,7 @@ static const struct subcommand subcommands[] = {
     { "train", cmd_train_main, "train a model, evaluate it, store a snapshot and promote it" },
     { "eval", cmd_eval_main, "evaluate a stored snapshot on a test file beside the baseline" },
     { "serve", cmd_serve_main, "serve predictions from the live snapshot over HTTP" },
+    { "worker", cmd_worker_main, "retrain unattended when inputs change or an interval passes" },
 };
 
 static void print_usage(FILE *out)
