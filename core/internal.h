@@ -14,6 +14,9 @@ struct weft_store {
     MDB_dbi catalog, blobs, head;
     char *dir;
     bool is_readonly;
+    size_t grow_to;          /* a write found the map full: map this many bytes before the
+                                next write transaction (0: nothing pending) */
+    size_t n_stale_readers;  /* reader slots of dead processes cleared by this handle */
 };
 
 /** Stored blob header, WEFT_BLOB_HEADER_BYTES long, little-endian as the host writes it. */
@@ -29,6 +32,14 @@ typedef struct weft_blob_header {
 
 /** Translate an LMDB return code into a weft error with @p what as context. */
 weft_err weft_store_mdb_error(int rc, const char *what, weft_error *err);
+
+/**
+ * mdb_txn_begin() on @p s (@p flags: MDB_RDONLY or 0) that follows a map another process
+ * grew: on MDB_MAP_RESIZED it adopts the new size and begins again when this process holds
+ * no other read transaction, else fails with WEFT_ERR_LIMIT (release the snapshots, then
+ * weft_store_remap()). Every transaction of libweft should begin here.
+ */
+weft_err weft_store_txn_begin(weft_store *s, unsigned flags, MDB_txn **txn, weft_error *err);
 
 /** Big-endian 8-byte key of @p version into @p out. */
 void weft_store_version_key(uint64_t version, unsigned char out[8]);

@@ -24,6 +24,7 @@ int cmd_train_main(int argc, char **argv);
 int cmd_serve_main(int argc, char **argv);
 int cmd_eval_main(int argc, char **argv);
 int cmd_worker_main(int argc, char **argv);
+int cmd_snapshots_main(int argc, char **argv);
 
 /** Print "weft: <err->msg>" on stderr; returns CMD_FAIL. */
 int cmd_report_error(const weft_error *err);

@@ -16,6 +16,7 @@ static const struct subcommand subcommands[] = {
     { "eval", cmd_eval_main, "evaluate a stored snapshot on a test file beside the baseline" },
     { "serve", cmd_serve_main, "serve predictions from the live snapshot over HTTP" },
     { "worker", cmd_worker_main, "retrain unattended when inputs change or an interval passes" },
+    { "snapshots", cmd_snapshots_main, "list, show, promote, roll back, prune, verify, export, import" },
 };
 
 static void print_usage(FILE *out)
