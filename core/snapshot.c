@@ -130,12 +130,11 @@ weft_err weft_snapshot_open(weft_store *s, uint64_t version, weft_snapshot **out
         return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory opening a snapshot");
     atomic_init(&snap->refs, 1);
     snap->version = version;
-    weft_err e = WEFT_OK;
-    int rc = mdb_txn_begin(s->env, NULL, MDB_RDONLY, &snap->txn);
-    if (rc) {
-        e = weft_store_mdb_error(rc, "begin read", err);
+    /* Through the store, which adopts a map another process grew while none is held. */
+    weft_err e = weft_store_txn_begin(s, MDB_RDONLY, &snap->txn, err);
+    int rc;
+    if (e != WEFT_OK)
         goto done;
-    }
     unsigned char key[8];
     weft_store_version_key(version, key);
     MDB_val k = { 8, key }, v;

@@ -1406,6 +1406,11 @@ static weft_err next_version(MDB_txn *txn, const weft_store *s, uint64_t *out, w
     return WEFT_OK;
 }
 
+uint64_t weft_store_writer_version(const weft_store_writer *w)
+{
+    return w->version;
+}
+
 weft_err weft_store_writer_open(weft_store *s, weft_store_writer **out, uint64_t *version,
                                 weft_error *err)
 {

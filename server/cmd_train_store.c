@@ -92,34 +92,74 @@ static weft_snapshot *open_live(weft_store *s, uint64_t *live)
     return snap;
 }
 
-/* Carry over the part this run did not train from @p live when the node table is unchanged;
- * otherwise say it is dropped. */
-static weft_err carry_over(weft_store_writer *w, const weft_snapshot *live, uint64_t live_v,
-                           const weft_graph *g, weft_snapshot_part p, json_t *manifest,
+/* What the write needs: the trained blobs' writer, and the parts to carry over. */
+struct store_job {
+    weft_store *store;
+    cmd_train_put_fn put;
+    void *ctx;
+    uint64_t live;                 /* 0: nothing to carry */
+    bool carry[3];                 /* by weft_snapshot_part */
+    json_t *carried[3];            /* their manifest records (owned) */
+};
+
+/* A weft_store_put_fn: the trained blobs, then the carried parts straight from the live
+ * snapshot, opened here so that the store may grow its map between attempts. */
+static weft_err put_all(void *ctx, weft_store_writer *w, json_t *manifest, weft_error *err)
+{
+    struct store_job *job = ctx;
+    weft_err rc = job->put(job->ctx, w, manifest, err);
+    json_t *models = json_object_get(manifest, "models");
+    const char *it;
+    json_t *rec;
+    json_object_foreach(models, it, rec)
+        if (!json_object_get(rec, "carried_from"))
+            json_object_set_new(rec, "trained_in",
+                                json_integer((json_int_t)weft_store_writer_version(w)));
+    if (rc != WEFT_OK || !(job->carry[WEFT_SNAPSHOT_LINK] || job->carry[WEFT_SNAPSHOT_LABELS]))
+        return rc;
+    weft_snapshot *live = NULL;
+    if ((rc = weft_snapshot_open(job->store, job->live, &live, err)) != WEFT_OK)
+        return rc;
+    for (int p = WEFT_SNAPSHOT_LINK; rc == WEFT_OK && p <= WEFT_SNAPSHOT_LABELS; p++) {
+        if (!job->carry[p])
+            continue;
+        rc = weft_snapshot_copy_part(w, live, p, manifest, err);
+        if (rc == WEFT_OK && json_object_set(models, part_names[p], job->carried[p]))
+            rc = weft_error_set(err, WEFT_ERR_NOMEM, "out of memory carrying a model over");
+    }
+    weft_snapshot_release(live);
+    return rc;
+}
+
+/* Decide what to carry over from @p live: the part this run did not train, when the node
+ * table is unchanged (else it is dropped, with a notice). */
+static weft_err plan_carry(struct store_job *job, const weft_snapshot *live, const weft_graph *g,
                            json_t *models, weft_error *err)
 {
-    if (!live || !weft_snapshot_has_part(live, p))
-        return WEFT_OK;
-    if (!weft_snapshot_same_nodes(live, &g->nodes)) {
-        fflush(stdout);
-        fprintf(stderr, "weft: notice: the live snapshot %llu's %s model is dropped: its node "
-                        "table differs from this run's (retrain it on the new graph)\n",
-                (unsigned long long)live_v, part_words[p]);
-        return WEFT_OK;
+    for (int p = WEFT_SNAPSHOT_LINK; p <= WEFT_SNAPSHOT_LABELS; p++) {
+        if (json_object_get(models, part_names[p]) || !weft_snapshot_has_part(live, p))
+            continue;
+        if (!weft_snapshot_same_nodes(live, &g->nodes)) {
+            fflush(stdout);
+            fprintf(stderr, "weft: notice: the live snapshot %llu's %s model is dropped: its "
+                            "node table differs from this run's (retrain it on the new "
+                            "graph)\n", (unsigned long long)job->live, part_words[p]);
+            continue;
+        }
+        json_t *rec = part_record(weft_snapshot_manifest(live), p);
+        json_t *copy = rec ? json_deep_copy(rec) : json_object();
+        json_decref(rec);
+        if (!copy || (!json_object_get(copy, "carried_from") &&
+                      json_object_set_new(copy, "carried_from",
+                                          json_integer((json_int_t)job->live)))) {
+            json_decref(copy);
+            return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory carrying a model over");
+        }
+        job->carry[p] = true;
+        job->carried[p] = copy;
+        printf("the live snapshot %llu's %s model is carried over (same node table)\n",
+               (unsigned long long)job->live, part_words[p]);
     }
-    weft_err rc = weft_snapshot_copy_part(w, live, p, manifest, err);
-    if (rc != WEFT_OK)
-        return rc;
-    json_t *rec = part_record(weft_snapshot_manifest(live), p);
-    json_t *copy = rec ? json_deep_copy(rec) : json_object();
-    json_decref(rec);
-    json_t *from = json_object_get(copy, "carried_from");
-    if (!copy || (!from && json_object_set_new(copy, "carried_from", json_integer(
-                                                   (json_int_t)live_v))) ||
-        json_object_set_new(models, part_names[p], copy))
-        return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory carrying a model over");
-    printf("the live snapshot %llu's %s model is carried over (same node table)\n",
-           (unsigned long long)live_v, part_words[p]);
     return WEFT_OK;
 }
 
@@ -127,10 +167,8 @@ weft_err cmd_train_store(const struct train_opts *o, const weft_graph *g, json_t
                          cmd_train_put_fn put, void *ctx, cmd_train_outcome *out,
                          weft_error *err)
 {
-    weft_store *store = NULL;
-    weft_store_writer *w = NULL;
+    struct store_job job = { .put = put, .ctx = ctx };
     weft_snapshot *live = NULL;
-    uint64_t live_v = 0;
     json_t *models = json_object_get(manifest, "models");
     json_t *gate = json_pack("{s:b, s:f, s:[]}", "passed", true, "tolerance",
                              o->gate_tolerance, "checks");
@@ -140,9 +178,9 @@ weft_err cmd_train_store(const struct train_opts *o, const weft_graph *g, json_t
         rc = weft_error_set(err, WEFT_ERR_INVALID, "internal: manifest without models");
         goto done;
     }
-    if ((rc = weft_store_open(o->store, WEFT_STORE_CREATE, 0, &store, err)) != WEFT_OK)
+    if ((rc = weft_store_open(o->store, WEFT_STORE_CREATE, 0, &job.store, err)) != WEFT_OK)
         goto done;
-    live = open_live(store, &live_v);
+    live = open_live(job.store, &job.live);
 
     /* The gate: every part trained in this run must pass. */
     bool passed = true;
@@ -157,7 +195,7 @@ weft_err cmd_train_store(const struct train_opts *o, const weft_graph *g, json_t
     }
     json_object_set_new(gate, "passed", json_boolean(passed));
     if (live)
-        json_object_set_new(gate, "compared_with", json_integer((json_int_t)live_v));
+        json_object_set_new(gate, "compared_with", json_integer((json_int_t)job.live));
     if (!passed) {
         json_object_set_new(gate, "reason", json_string(out->reason));
         if (o->is_force)
@@ -167,33 +205,25 @@ weft_err cmd_train_store(const struct train_opts *o, const weft_graph *g, json_t
         rc = weft_error_set(err, WEFT_ERR_NOMEM, "out of memory writing the manifest");
         goto done;
     }
-
-    if ((rc = weft_store_writer_open(store, &w, &out->version, err)) != WEFT_OK ||
-        (rc = put(ctx, w, manifest, err)) != WEFT_OK)
+    if (live && (rc = plan_carry(&job, live, g, models, err)) != WEFT_OK)
         goto done;
-    for (int p = WEFT_SNAPSHOT_LINK; p <= WEFT_SNAPSHOT_LABELS; p++)
-        if (!json_object_get(models, part_names[p]) &&
-            (rc = carry_over(w, live, live_v, g, p, manifest, models, err)) != WEFT_OK)
-            goto done;
-    const char *it;
-    json_t *rec;
-    json_object_foreach(models, it, rec)
-        if (!json_object_get(rec, "carried_from"))
-            json_object_set_new(rec, "trained_in", json_integer((json_int_t)out->version));
-    /* The snapshot the live one would have to be rolled back to is live until this commits;
-     * release it first so the commit does not wait on our own reader. */
+    /* No snapshot may stay open while the store writes: it may have to grow its map. */
     weft_snapshot_release(live);
     live = NULL;
+
     out->is_live = (passed || o->is_force) && !o->is_no_promote;
     out->is_rejected = !passed && !o->is_force;
-    out->is_forced = !passed && o->is_force;
-    rc = weft_store_writer_commit(w, manifest, out->is_live,
-                                  out->is_rejected ? "rejected" : "staged", err);
-    w = NULL;   /* commit frees the writer whatever the outcome */
+    out->is_forced = !passed && o->is_force && out->is_live;
+    weft_store_state state = out->is_live ? WEFT_STORE_STATE_LIVE
+                           : out->is_rejected ? WEFT_STORE_STATE_REJECTED
+                                              : WEFT_STORE_STATE_STAGED;
+    weft_store_change how = { passed ? NULL : out->reason, out->is_forced };
+    rc = weft_store_write(job.store, put_all, &job, manifest, state, &how, &out->version, err);
 done:
-    weft_store_writer_abort(w);
     weft_snapshot_release(live);
-    weft_store_close(store);
+    weft_store_close(job.store);
+    for (int p = WEFT_SNAPSHOT_LINK; p <= WEFT_SNAPSHOT_LABELS; p++)
+        json_decref(job.carried[p]);
     json_decref(gate);
     return rc;
 }

@@ -275,6 +275,9 @@ typedef struct weft_store_writer weft_store_writer;
 weft_err weft_store_writer_open(weft_store *s, weft_store_writer **out, uint64_t *version,
                                 weft_error *err);
 
+/** The version @p w will commit as. */
+uint64_t weft_store_writer_version(const weft_store_writer *w);
+
 /**
  * Add blob @p name with @p ndim dimensions @p shape of @p dtype, copying
  * product(shape) * weft_dtype_size(dtype) bytes from @p data. Its CRC-32, shape and dtype go

@@ -59,6 +59,10 @@ check "worse model: exit status 3" test $rc -eq 3
 check "worse model: stored as rejected with the reason" \
     test "$(manifest "$S" 3 "(m['state'], m['gate']['passed'], 'below the live' in m['gate']['reason'])")" = "('rejected', False, True)"
 check "worse model: the live snapshot is still 2" grep -q "the live snapshot is unchanged" "$E2E_TMP/3.out"
+check "worse model: the store records the reason with the state" \
+    test "$(manifest "$S" 3 "'below the live' in m['reason']")" = True
+"$WEFT" snapshots promote 3 --store "$S" >"$E2E_TMP/promote3.out" 2>&1
+check "a rejected snapshot is not promoted without --force" test $? -ne 0
 check "worse model: v2 is still live" test "$(manifest "$S" 2 "m['state']")" = live
 dot --epochs 1 --force >"$E2E_TMP/4.out" 2>&1
 check "--force: promoted, recorded as forced" \

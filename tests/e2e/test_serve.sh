@@ -53,8 +53,10 @@ wait_version() {
     return 1
 }
 
+# --force: karate's few held-out edges cannot show a model beating popularity reliably;
+# this test is about serving, and the gate has its own (test_gate.sh).
 train() {
-    "$WEFT" train --quiet --store "$STORE" --edges "$EDGES" --model dot --undirected "$@" \
+    "$WEFT" train --quiet --force --store "$STORE" --edges "$EDGES" --model dot --undirected "$@" \
         >>"$E2E_TMP/train.log" 2>&1
 }
 

@@ -10,7 +10,9 @@ set -u
 EDGES="$TOP/tests/data/karate/edges.tsv"
 STORE="$E2E_TMP/store"
 
-check "weft train" sh -c '"$1" train --quiet --store "$2" --edges "$3" --model dot --undirected \
+# --force: karate's few held-out edges cannot show a model beating popularity reliably;
+# this test is about the stored bytes, and the gate has its own (test_gate.sh).
+check "weft train" sh -c '"$1" train --quiet --force --store "$2" --edges "$3" --model dot --undirected \
     >"$4/train.log" 2>&1' sh "$WEFT" "$STORE" "$EDGES" "$E2E_TMP"
 start_server "$STORE" || finish
 curl -sS "$BASE/v1/model" >"$E2E_TMP/model.json"
@@ -165,7 +167,7 @@ print("DATA=END")
 EOF
 
 stop_server
-check "weft train (version 2)" sh -c '"$1" train --quiet --store "$2" --edges "$3" --model dot \
+check "weft train (version 2)" sh -c '"$1" train --quiet --force --store "$2" --edges "$3" --model dot \
     --undirected --seed 2 >>"$4/train.log" 2>&1' sh "$WEFT" "$STORE" "$EDGES" "$E2E_TMP"
 mdb_dump -s blobs "$STORE" >"$E2E_TMP/blobs2.dump"
 /usr/bin/python3 "$E2E_TMP/damage.py" "$E2E_TMP" >"$E2E_TMP/damage.dump"
