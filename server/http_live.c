@@ -116,7 +116,23 @@ static void poll_once(http_live *live)
         return;
     }
     uint64_t version = 0, previous = 0;
-    if (weft_store_head(live->store, &version, &previous, &err) != WEFT_OK) {
+    weft_err rc = weft_store_head(live->store, &version, &previous, &err);
+    if (rc == WEFT_ERR_LIMIT) {
+        /* A writer grew the store's map beyond ours. Remapping moves the map, so it waits
+         * until no snapshot is held: stop handing the current one out (requests answer 503
+         * meanwhile), let the requests that hold it finish, remap, then load again. */
+        if (live->loaded) {
+            http_log("the store's map grew beyond this server's: reloading version %llu once "
+                     "the requests in flight are done", (unsigned long long)live->loaded);
+            publish(live, NULL);
+        }
+        if (weft_store_remap(live->store, &err) != WEFT_OK) {
+            log_problem(live, "waiting to adopt the store's larger map", &err);
+            return;
+        }
+        rc = weft_store_head(live->store, &version, &previous, &err);
+    }
+    if (rc != WEFT_OK) {
         log_problem(live, "cannot read the store's head", &err);
         return;
     }
