@@ -36,6 +36,7 @@ python3-sklearn
 python3-jsonschema
 python3-yaml
 openapi-specification
+wrk
 "
 
 # Only for `make bench`: the reference programs of ../shared/bench (PyTorch) and load tools.
