@@ -36,12 +36,14 @@ python3-sklearn
 python3-jsonschema
 python3-yaml
 openapi-specification
+prometheus
 wrk
 "
 
 # Only for `make bench`: the reference programs of ../shared/bench (PyTorch) and load tools.
 BENCH_PACKAGES="
 python3-torch
+python3-flask
 util-linux
 "
 [ "$with_bench" -eq 1 ] && PACKAGES="$PACKAGES $BENCH_PACKAGES"
