@@ -57,7 +57,7 @@ PY
 : >"$OUT/raw-wrk.txt"
 WPORT=$(port)
 taskset -c 1 "$BUILD/weft" serve --store "$OUT/service-store" --listen "127.0.0.1:$WPORT" \
-    >"$OUT/weft-serve.log" 2>&1 &
+    --access-log off >"$OUT/weft-serve.log" 2>&1 &
 WPID=$!
 wait_up "http://127.0.0.1:$WPORT/v1/links/predict?source=1&k=10"
 w16=$(run_wrk "http://127.0.0.1:$WPORT" "$OUT/weft_top.lua" 16)

@@ -593,6 +593,55 @@ weft_err weft_snapshot_put_labels(weft_store_writer *w, json_t *manifest, const 
     return WEFT_OK;
 }
 
+/* ---- node types ---- */
+
+weft_err weft_snapshot_types_view(const weft_snapshot *snap, weft_types_view *out,
+                                  weft_error *err)
+{
+    const json_t *types = json_object_get(snap->manifest, "types");
+    if (!json_is_object(types))
+        return weft_error_set(err, WEFT_ERR_NOT_FOUND, "version %llu holds no node types",
+                              (unsigned long long)snap->version);
+    weft_types_view v;
+    memset(&v, 0, sizeof v);
+    weft_names_view nodes;
+    const void *p;
+    weft_err e;
+    if ((e = names_view(snap, "nodes", &nodes, err)) ||
+        (e = names_view(snap, "types", &v.names, err)) ||
+        (e = need_vector(snap, "node.type", WEFT_DTYPE_U32, nodes.n, &p, err)))
+        return e;
+    v.n_nodes = nodes.n;
+    v.n_types = v.names.n;
+    v.of_node = p;
+    if (json_integer_value(json_object_get(types, "count")) != (json_int_t)v.n_types)
+        return fail_blob(err, snap->version, "types", "type count disagrees with the manifest");
+    for (size_t i = 0; i < v.n_nodes; i++)
+        if (v.of_node[i] >= v.n_types && v.of_node[i] != WEFT_TYPES_NONE)
+            return fail_blob(err, snap->version, "node.type", "type out of range");
+    *out = v;
+    return WEFT_OK;
+}
+
+weft_err weft_snapshot_put_types(weft_store_writer *w, json_t *manifest, const weft_types *t,
+                                 weft_error *err)
+{
+    for (size_t i = 0; i < t->n_nodes; i++)
+        if (t->of_node[i] >= t->names.n && t->of_node[i] != WEFT_TYPES_NONE)
+            return weft_error_set(err, WEFT_ERR_INVALID, "node %zu: type %u out of range", i,
+                                  (unsigned)t->of_node[i]);
+    size_t n = t->n_nodes;
+    weft_err e;
+    if ((e = put_names(w, "types", &t->names, err)) ||
+        (e = weft_store_writer_put(w, "node.type", WEFT_DTYPE_U32, 1, &n, t->of_node, err)))
+        return e;
+    json_t *j = json_pack("{s:I, s:I}", "count", (json_int_t)t->names.n, "typed",
+                          (json_int_t)t->n_typed);
+    if (!j || json_object_set_new(manifest, "types", j))
+        return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory writing the manifest");
+    return WEFT_OK;
+}
+
 /* ---- carrying a model part over from another snapshot ---- */
 
 bool weft_snapshot_same_nodes(const weft_snapshot *snap, const weft_names *nodes)

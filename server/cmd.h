@@ -58,6 +58,14 @@ void cmd_vlog(const char *who, const char *fmt, va_list ap) __attribute__((forma
 /** Online CPUs (at least 1): the default thread count of train and eval. */
 size_t cmd_online_cpus(void);
 
+/**
+ * One manifest @p m summarised as `weft snapshots list --json` and GET /v1/snapshots show it:
+ * version, state, created, is_previous (against @p previous), bytes, "link" {kind, test_mrr}
+ * and "labels" {kind, test_accuracy} when present, and reason, forced, origin when set. A new
+ * reference; NULL when out of memory. (server/cmd_snapshots.c)
+ */
+json_t *cmd_snapshots_summary_json(const json_t *m, uint64_t previous);
+
 /* ---- Link evaluation shared by `weft train` and `weft eval` (server/cmd_eval.c) ---- */
 
 /** Sampled non-edges per held-out edge for AUC-ROC and AP on one-relation graphs. */

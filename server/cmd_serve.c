@@ -1,10 +1,17 @@
 /* weft serve: the HTTP API over the store's live snapshot, following promotions. */
+#define _GNU_SOURCE   /* sched_getaffinity: the cores this process may run on */
 #include "cmd.h"
 #include "http.h"
 
 #include <arpa/inet.h>
+#include <errno.h>
+#include <fcntl.h>
+#include <math.h>
+#include <stdlib.h>
+#include <nettle/sha2.h>
 #include <netinet/in.h>
 #include <pthread.h>
+#include <sched.h>
 #include <signal.h>
 #include <stdio.h>
 #include <string.h>
@@ -18,10 +25,16 @@ void openblas_set_num_threads(int n);
 #define SUB "serve"
 #define MAX_THREADS 256
 #define MAX_K_LIMIT 1000000
+#define MAX_BATCH_LIMIT 100000
+#define MAX_BODY_LIMIT (1ull << 30)
+/* An admin token shorter than this is refused: it could be guessed. */
+#define MIN_TOKEN_BYTES 16
+#define MAX_TOKEN_BYTES 4096
 
 static const char usage_text[] =
     "usage: weft serve --store DIR [--listen ADDR:PORT] [--threads N] [--max-k N]\n"
-    "                  [--poll-ms N]\n"
+    "                  [--max-batch N] [--max-body BYTES] [--admin-token-file FILE]\n"
+    "                  [--poll-ms N] [--max-age AGE] [--access-log FILE] [--inputs FILE,...]\n"
     "\n"
     "Serves predictions from the store's live snapshot as JSON over HTTP. A snapshot\n"
     "promoted later (by weft train) is picked up without a restart. SIGINT or SIGTERM\n"
@@ -30,9 +43,26 @@ static const char usage_text[] =
     "  --store DIR         the snapshot store; it may still be empty\n"
     "  --listen ADDR:PORT  numeric address to listen on (default 127.0.0.1:8080;\n"
     "                      IPv6 as [::1]:8080)\n"
-    "  --threads N         request threads, 1 to 256 (default: the number of CPUs)\n"
+    "  --threads N         request threads, 1 to 256 (default: 16 per usable core, at\n"
+    "                      least 32; most wait for a top-k pass shared with others)\n"
+    "  --scan-threads N    top-k passes that may run at once (default: the usable cores)\n"
     "  --max-k N           most predictions one request may ask for (default 1000)\n"
-    "  --poll-ms N         how often to look for a new live snapshot, in ms (default 200)\n";
+    "  --max-batch N       most queries, triples or nodes one POST may hold (default 1000)\n"
+    "  --max-body BYTES    largest request body (default 1048576)\n"
+    "  --admin-token-file FILE\n"
+    "                      turn on the admin routes (promote, rollback), which then need\n"
+    "                      'Authorization: Bearer TOKEN' with the token in FILE (read once,\n"
+    "                      at start; at least 16 bytes; surrounding white space ignored).\n"
+    "                      The store is then opened for writing. Without it they answer 404\n"
+    "  --poll-ms N         how often to look for a new live snapshot, in ms (default 200)\n"
+    "  --max-age AGE       /v1/health warns when the live snapshot is older than AGE and\n"
+    "                      fails past twice AGE: seconds, or a number with s, m, h or d\n"
+    "                      (default 7d)\n"
+    "  --access-log FILE   one JSON line per request, appended to FILE; '-' is stderr (the\n"
+    "                      default), 'off' writes none\n"
+    "  --inputs FILE,...   edge files whose nodes /v1/health's coverage check looks up in the\n"
+    "                      live node table (default: the edge files the snapshot's manifest\n"
+    "                      names, where they can be read)\n";
 
 /* "A.B.C.D:PORT" or "[v6]:PORT", numeric only: a name would need a resolver and could
  * silently bind somewhere other than intended. */
@@ -92,18 +122,120 @@ static bool parse_listen(const char *given, http_settings *cfg)
     return true;
 }
 
-static unsigned online_cpus(void)
+/* Read the admin token from @p path and keep only its SHA-256 in @p cfg: requests are then
+ * compared digest to digest, in constant time, whatever their length. */
+static bool read_admin_token(const char *path, http_settings *cfg)
 {
-    long n = sysconf(_SC_NPROCESSORS_ONLN);
-    return n < 1 ? 1 : n > MAX_THREADS ? MAX_THREADS : (unsigned)n;
+    FILE *f = fopen(path, "r");
+    if (!f) {
+        cmd_usage_error(SUB, "--admin-token-file: %s: %s", path, strerror(errno));
+        return false;
+    }
+    char buf[MAX_TOKEN_BYTES + 2];
+    size_t n = fread(buf, 1, sizeof buf, f);
+    bool is_read_error = ferror(f);
+    struct stat st;
+    bool is_shared = fstat(fileno(f), &st) == 0 && (st.st_mode & 077);
+    fclose(f);
+    if (is_read_error) {
+        cmd_usage_error(SUB, "--admin-token-file: %s: cannot read it", path);
+        return false;
+    }
+    if (n > MAX_TOKEN_BYTES) {
+        cmd_usage_error(SUB, "--admin-token-file: %s: longer than %d bytes", path,
+                        MAX_TOKEN_BYTES);
+        return false;
+    }
+    size_t start = 0;
+    while (start < n && (buf[start] == ' ' || buf[start] == '\t' || buf[start] == '\n' ||
+                         buf[start] == '\r'))
+        start++;
+    while (n > start && (buf[n - 1] == ' ' || buf[n - 1] == '\t' || buf[n - 1] == '\n' ||
+                         buf[n - 1] == '\r'))
+        n--;
+    if (n - start < MIN_TOKEN_BYTES) {
+        cmd_usage_error(SUB, "--admin-token-file: %s: the token must have at least %d bytes",
+                        path, MIN_TOKEN_BYTES);
+        return false;
+    }
+    struct sha256_ctx ctx;
+    sha256_init(&ctx);
+    sha256_update(&ctx, n - start, (const uint8_t *)buf + start);
+    sha256_digest(&ctx, sizeof cfg->admin_token_sha256, cfg->admin_token_sha256);
+    memset(buf, 0, sizeof buf);
+    cfg->has_admin_token = true;
+    if (is_shared)
+        fprintf(stderr, "weft: warning: %s can be read by other users (chmod 600 it)\n", path);
+    return true;
+}
+
+/* "3600", "90s", "30m", "36h", "7d", "1.5d": seconds, from 1 s to 10 years. */
+static bool parse_age(const char *text, double *out)
+{
+    char *end = NULL;
+    double v = strtod(text, &end);
+    double unit = 1;
+    if (end && end != text && end[0] && !end[1]) {
+        unit = end[0] == 's' ? 1 : end[0] == 'm' ? 60 : end[0] == 'h' ? 3600
+               : end[0] == 'd' ? 86400 : 0;
+        end++;
+    }
+    double seconds = v * unit;
+    if (!end || end == text || *end || unit == 0 || !isfinite(seconds) || seconds < 1
+        || seconds > 10 * 366 * 86400.0) {
+        cmd_usage_error(SUB, "--max-age: '%s' is not an age from 1s to 3660d (for example "
+                        "3600, 36h or 7d)", text);
+        return false;
+    }
+    *out = seconds;
+    return true;
+}
+
+/* "-" is stderr, "off" none, else a file opened for appending (created 0640). */
+static bool open_access_log(const char *path, http_settings *cfg)
+{
+    if (!strcmp(path, "-")) {
+        cfg->access_log_fd = STDERR_FILENO;
+    } else if (!strcmp(path, "off")) {
+        cfg->access_log_fd = -1;
+    } else {
+        cfg->access_log_fd = open(path, O_WRONLY | O_APPEND | O_CREAT | O_CLOEXEC, 0640);
+        if (cfg->access_log_fd < 0) {
+            cmd_usage_error(SUB, "--access-log: %s: %s", path, strerror(errno));
+            return false;
+        }
+    }
+    return true;
+}
+
+/* The cores this process may run on (a taskset counts), at least 1. */
+static unsigned usable_cpus(void)
+{
+    cpu_set_t set;
+    long n = sched_getaffinity(0, sizeof set, &set) == 0 ? CPU_COUNT(&set)
+                                                          : sysconf(_SC_NPROCESSORS_ONLN);
+    return n < 1 ? 1 : n > HTTP_SCAN_MAX_LEADERS ? HTTP_SCAN_MAX_LEADERS : (unsigned)n;
+}
+
+/* Request threads by default: many wait for a shared top-k pass (http_scan.c) while one per
+ * core computes, so a pass can serve as many requests as there are threads (ours: 16 per
+ * core, at least 32; measured in bench/service.sh). */
+static unsigned default_threads(void)
+{
+    unsigned n = 16 * usable_cpus();
+    return n < 32 ? 32 : n > MAX_THREADS ? MAX_THREADS : n;
 }
 
 /* Fill @p cfg from argv. @return -1 to go on, else the exit status (help, usage error). */
 static int parse_args(int argc, char **argv, http_settings *cfg)
 {
     const char *listen_text = "127.0.0.1:8080";
-    uint64_t threads = online_cpus(), max_k = HTTP_DEFAULT_MAX_K, poll_ms = HTTP_DEFAULT_POLL_MS;
+    uint64_t threads = default_threads(), scan = usable_cpus(), max_k = HTTP_DEFAULT_MAX_K, poll_ms = HTTP_DEFAULT_POLL_MS;
+    uint64_t max_batch = HTTP_DEFAULT_MAX_BATCH, max_body = HTTP_DEFAULT_MAX_BODY;
+    const char *token_file = NULL, *access_log = "-";
     cfg->store_dir = NULL;
+    cfg->max_age_seconds = HTTP_DEFAULT_MAX_AGE_SECONDS;
+    cfg->inputs = NULL;
     for (int i = 1; i < argc; i++) {
         bool bad = false;
         const char *v;
@@ -117,9 +249,29 @@ static int parse_args(int argc, char **argv, http_settings *cfg)
         } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--threads", &bad))) {
             if (!cmd_parse_u64(SUB, "--threads", v, 1, MAX_THREADS, &threads))
                 return CMD_USAGE;
+        } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--scan-threads", &bad))) {
+            if (!cmd_parse_u64(SUB, "--scan-threads", v, 1, HTTP_SCAN_MAX_LEADERS, &scan))
+                return CMD_USAGE;
         } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--max-k", &bad))) {
             if (!cmd_parse_u64(SUB, "--max-k", v, 1, MAX_K_LIMIT, &max_k))
                 return CMD_USAGE;
+        } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--max-batch", &bad))) {
+            if (!cmd_parse_u64(SUB, "--max-batch", v, 1, MAX_BATCH_LIMIT, &max_batch))
+                return CMD_USAGE;
+        } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--max-body", &bad))) {
+            if (!cmd_parse_u64(SUB, "--max-body", v, 64, MAX_BODY_LIMIT, &max_body))
+                return CMD_USAGE;
+        } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--admin-token-file", &bad))) {
+            token_file = v;
+        } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--max-age", &bad))) {
+            if (!parse_age(v, &cfg->max_age_seconds))
+                return CMD_USAGE;
+        } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--access-log", &bad))) {
+            access_log = v;
+        } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--inputs", &bad))) {
+            if (!*v)
+                return cmd_usage_error(SUB, "--inputs: give at least one file");
+            cfg->inputs = v;
         } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--poll-ms", &bad))) {
             if (!cmd_parse_u64(SUB, "--poll-ms", v, 10, 600000, &poll_ms))
                 return CMD_USAGE;
@@ -138,8 +290,15 @@ static int parse_args(int argc, char **argv, http_settings *cfg)
         return CMD_USAGE;
     snprintf(cfg->listen, sizeof cfg->listen, "%s", listen_text);
     cfg->n_threads = (unsigned)threads;
+    cfg->n_scan_threads = (unsigned)scan;
     cfg->max_k = (size_t)max_k;
     cfg->poll_ms = (unsigned)poll_ms;
+    cfg->max_batch = (size_t)max_batch;
+    cfg->max_body = (size_t)max_body;
+    if (token_file && !read_admin_token(token_file, cfg))
+        return CMD_USAGE;
+    if (!open_access_log(access_log, cfg))   /* last: nothing fails after it opens a file */
+        return CMD_USAGE;
     return -1;
 }
 
@@ -180,23 +339,29 @@ int cmd_serve_main(int argc, char **argv)
         return CMD_FAIL;
     }
 
+    http_scan_init(cfg.n_scan_threads);
     weft_error err;
     weft_error_clear(&err);
     http_live *live = NULL;
     http_daemon *server = NULL;
-    if (http_live_start(cfg.store_dir, cfg.poll_ms, &live, &err) != WEFT_OK)
+    if (http_live_start(cfg.store_dir, cfg.poll_ms, cfg.has_admin_token, &live, &err) != WEFT_OK)
         return cmd_report_error(&err);
-    if (http_daemon_start(&cfg, live, &server, &err) != WEFT_OK) {
+    if ((cfg.inputs && http_live_set_inputs(live, cfg.inputs, &err) != WEFT_OK)
+        || http_daemon_start(&cfg, live, &server, &err) != WEFT_OK) {
         http_live_stop(live);
         return cmd_report_error(&err);
     }
-    http_log("listening on http://%s (request threads: %u, store: %s)", cfg.listen,
-             cfg.n_threads, cfg.store_dir);
+    http_log("listening on http://%s (request threads: %u, top-k passes at once: %u, store: "
+             "%s, admin routes %s)", cfg.listen, cfg.n_threads, cfg.n_scan_threads,
+             cfg.store_dir, cfg.has_admin_token ? "on" : "off");
 
     int sig = wait_for_stop(&stop_signals);
     http_log("%s: finishing open requests", sig == SIGINT ? "SIGINT" : "SIGTERM");
     http_daemon_stop(server, HTTP_DRAIN_MS);
     http_live_stop(live);
+    http_scan_fini();
     http_log("stopped");
+    if (cfg.access_log_fd > STDERR_FILENO)
+        close(cfg.access_log_fd);
     return CMD_OK;
 }

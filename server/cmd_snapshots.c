@@ -284,7 +284,7 @@ static void note_stale_readers(const weft_store *s, const struct snap_opts *o)
 
 /* ---- list ---- */
 
-static json_t *summary_json(const json_t *m, uint64_t previous)
+json_t *cmd_snapshots_summary_json(const json_t *m, uint64_t previous)
 {
     json_t *j = json_pack("{s:O?, s:O?, s:O?, s:b, s:I}", "version", json_object_get(m, "version"),
                           "state", json_object_get(m, "state"), "created",
@@ -337,7 +337,7 @@ static weft_err do_list(weft_store *s, const struct snap_opts *o, weft_error *er
     if (o->is_json) {
         json_t *rows = json_array();
         json_array_foreach(all, i, m)
-            json_array_append_new(rows, summary_json(m, previous));
+            json_array_append_new(rows, cmd_snapshots_summary_json(m, previous));
         e = print_json_new(json_pack("{s:s, s:I, s:I, s:I, s:o}", "store", o->store, "live",
                                      (json_int_t)live, "previous", (json_int_t)previous,
                                      "stale_readers_cleared",

@@ -44,7 +44,10 @@ static void print_help(void)
            "                     one number T holds out T for testing and nothing for validation\n"
            "  --valid FILE       validation edges (needs --test)\n"
            "  --test FILE        test edges, instead of a holdout\n"
-           "  --undirected       each edge a-b also stands for b-a\n\n"
+           "  --undirected       each edge a-b also stands for b-a\n"
+           "  --types FILE       node types, node<TAB>type (stored with the node table; the\n"
+           "                     server can then limit candidates to one type). Not carried\n"
+           "                     over: a run without it stores no types\n\n"
            "model and training (defaults depend on the model and the number of nodes; the\n"
            "values used are printed and stored in the snapshot's manifest):\n"
            "  --model KIND       dot, distmult or complex (default: dot for one relation,\n"
@@ -298,6 +301,8 @@ static int parse_opts(int argc, char **argv, struct train_opts *o)
             o->valid = v;
         } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--test", &bad))) {
             o->test = v;
+        } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--types", &bad))) {
+            o->types_file = v;
         } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--report", &bad))) {
             o->report = v;
         } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--holdout", &bad))) {
@@ -476,7 +481,7 @@ static weft_err load_graph(const struct train_opts *o, struct inputs *in, weft_e
 
 json_t *cmd_train_fingerprints(const struct train_opts *o, weft_error *err)
 {
-    const char *paths[MAX_EDGE_FILES + 5], *roles[MAX_EDGE_FILES + 5];
+    const char *paths[MAX_EDGE_FILES + 6], *roles[MAX_EDGE_FILES + 6];
     size_t n = 0;
     for (size_t i = 0; i < o->n_edges; i++) {
         paths[n] = o->edges[i];
@@ -490,9 +495,9 @@ json_t *cmd_train_fingerprints(const struct train_opts *o, weft_error *err)
         paths[n] = o->test;
         roles[n++] = "test";
     }
-    const char *extra[3] = { o->features, o->labels, o->split };
-    static const char *const extra_roles[3] = { "features", "labels", "split" };
-    for (size_t i = 0; i < 3; i++)
+    const char *extra[4] = { o->features, o->labels, o->split, o->types_file };
+    static const char *const extra_roles[4] = { "features", "labels", "split", "types" };
+    for (size_t i = 0; i < 4; i++)
         if (extra[i]) {
             paths[n] = extra[i];
             roles[n++] = extra_roles[i];
@@ -929,8 +934,14 @@ int cmd_train_main(int argc, char **argv)
     int prc = parse_opts(argc, argv, &o);
     if (prc != CMD_OK)
         return prc < 0 ? CMD_OK : prc;
-    if (o.task == CMD_TRAIN_GCN)
-        return cmd_train_gcn_main(&o);
+    weft_types types;   /* read by cmd_train_types_load() once the graph is there */
+    memset(&types, 0, sizeof types);
+    o.types = &types;
+    if (o.task == CMD_TRAIN_GCN) {
+        int gcn_status = cmd_train_gcn_main(&o);
+        weft_types_fini(&types);
+        return gcn_status;
+    }
 
     weft_error err;
     weft_error_clear(&err);
@@ -948,6 +959,8 @@ int cmd_train_main(int argc, char **argv)
     weft_err rc = pr.curve ? WEFT_OK : weft_error_set(&err, WEFT_ERR_NOMEM, "out of memory");
     if (rc == WEFT_OK)
         rc = load_graph(&o, &in, &err);
+    if (rc == WEFT_OK)
+        rc = cmd_train_types_load(&o, in.g, &err);
     if (rc != WEFT_OK)
         goto done;
     configure(&o, in.g, &cfg);
@@ -1022,5 +1035,6 @@ done:
     inputs_fini(&in);
     cmd_train_gcn_labels_free(labels);
     warm_fini(&warm);
+    weft_types_fini(&types);
     return rc == WEFT_OK ? status : cmd_report_error(&err);
 }

@@ -12,6 +12,7 @@
 #include "weft/store.h"
 #include "weft/train_gcn.h"
 #include "weft/train_link.h"
+#include "weft/types.h"
 
 #define MAX_EDGE_FILES 64
 
@@ -70,6 +71,10 @@ struct train_opts {
     cmd_train_task task;
     bool also_gcn;                /* --model X,gcn: a GCN on the labels as well */
     const char *labels, *features, *split;
+    /* node types (cmd_train_store.c) */
+    const char *types_file;       /* --types FILE, or NULL */
+    weft_types *types;            /* loaded by cmd_train_types_load(); owned by the caller of
+                                     the run (cmd_train_main); NULL or empty when none */
     bool is_raw_features;         /* --raw-features: no row normalisation */
     /* the gate (cmd_train_store.c) */
     bool is_force, is_no_promote;
@@ -119,6 +124,15 @@ typedef struct cmd_train_outcome {
 weft_err cmd_train_store(const struct train_opts *o, const weft_graph *g, json_t *manifest,
                          cmd_train_put_fn put, void *ctx, cmd_train_outcome *out,
                          weft_error *err);
+
+/**
+ * Read o->types_file (when given) for the nodes of final graph @p g into *o->types, and say
+ * how many nodes got a type. Called right after the graph is loaded, so that a bad file
+ * fails the run before training. The types are written with the snapshot's node table by
+ * cmd_train_store(); a run without --types stores none (they are not carried over).
+ * @return WEFT_OK, the codes of weft_types_load() (unknown node: "file:line: ...")
+ */
+weft_err cmd_train_types_load(const struct train_opts *o, const weft_graph *g, weft_error *err);
 
 /** Print what became of the snapshot. @return CMD_OK, or CMD_REJECTED when the gate refused it. */
 int cmd_train_report_outcome(const struct train_opts *o, const cmd_train_outcome *oc);

@@ -749,6 +749,8 @@ int cmd_train_gcn_main(const struct train_opts *o)
     weft_err rc = pr.curve ? WEFT_OK : weft_error_set(&err, WEFT_ERR_NOMEM, "out of memory");
     if (rc == WEFT_OK)
         rc = load_graph(o, &r, &err);
+    if (rc == WEFT_OK)
+        rc = cmd_train_types_load(o, r.g, &err);
     if (rc == WEFT_OK && !(inputs = cmd_train_fingerprints(o, &err)))
         rc = err.code ? err.code : weft_error_set(&err, WEFT_ERR_NOMEM, "out of memory");
     if (rc != WEFT_OK || (rc = train_labels(o, &r, &pr, &err)) != WEFT_OK)

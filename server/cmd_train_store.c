@@ -97,6 +97,7 @@ struct store_job {
     weft_store *store;
     cmd_train_put_fn put;
     void *ctx;
+    const weft_types *types;       /* written with the node table; NULL: none */
     uint64_t live;                 /* 0: nothing to carry */
     bool carry[3];                 /* by weft_snapshot_part */
     json_t *carried[3];            /* their manifest records (owned) */
@@ -108,6 +109,8 @@ static weft_err put_all(void *ctx, weft_store_writer *w, json_t *manifest, weft_
 {
     struct store_job *job = ctx;
     weft_err rc = job->put(job->ctx, w, manifest, err);
+    if (rc == WEFT_OK && job->types)
+        rc = weft_snapshot_put_types(w, manifest, job->types, err);
     json_t *models = json_object_get(manifest, "models");
     const char *it;
     json_t *rec;
@@ -168,6 +171,8 @@ weft_err cmd_train_store(const struct train_opts *o, const weft_graph *g, json_t
                          weft_error *err)
 {
     struct store_job job = { .put = put, .ctx = ctx };
+    if (o->types && o->types->n_typed)
+        job.types = o->types;
     weft_snapshot *live = NULL;
     json_t *models = json_object_get(manifest, "models");
     json_t *gate = json_pack("{s:b, s:f, s:[]}", "passed", true, "tolerance",
@@ -226,6 +231,19 @@ done:
         json_decref(job.carried[p]);
     json_decref(gate);
     return rc;
+}
+
+weft_err cmd_train_types_load(const struct train_opts *o, const weft_graph *g, weft_error *err)
+{
+    if (!o->types_file || !o->types)
+        return WEFT_OK;
+    weft_names_view nodes = weft_names_as_view(&g->nodes);
+    weft_err rc = weft_types_load(o->types_file, &nodes, o->types, err);
+    if (rc != WEFT_OK)
+        return rc;
+    printf("types: %zu of %zu nodes typed, %zu types\n", o->types->n_typed, g->nodes.n,
+           o->types->names.n);
+    return WEFT_OK;
 }
 
 int cmd_train_report_outcome(const struct train_opts *o, const cmd_train_outcome *oc)

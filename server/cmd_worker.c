@@ -42,7 +42,7 @@
 
 /* Options of weft train that name watched input files. */
 static const char *const input_options[] = { "edges", "valid", "test", "labels", "features",
-                                             "split" };
+                                             "split", "types" };
 /* Options the worker sets itself. */
 static const char *const worker_options[] = { "store", "quiet", "force", "no-promote",
                                               "gate-tolerance", "warm-start", "report",

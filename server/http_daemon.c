@@ -12,12 +12,14 @@
 #include <unistd.h>
 
 #include "cmd.h"
+#include "weft/alloc.h"
 
 struct http_daemon {
     struct MHD_Daemon *mhd;
     const http_settings *cfg;
     http_live *live;
     atomic_bool is_draining;    /* set by stop: responses then close their connection */
+    http_metrics *metrics;      /* request counters (http_metrics.c) */
 };
 
 /* Sent when even the error body cannot be built (out of memory). */
@@ -89,12 +91,15 @@ static enum MHD_Result send_reply(http_daemon *d, struct MHD_Connection *conn,
     }
     if (!resp)
         return MHD_NO;
-    bool ok = MHD_add_response_header(resp, MHD_HTTP_HEADER_CONTENT_TYPE, "application/json")
-              == MHD_YES;
+    const char *type = text && reply->content_type ? reply->content_type : "application/json";
+    bool ok = MHD_add_response_header(resp, MHD_HTTP_HEADER_CONTENT_TYPE, type) == MHD_YES;
     ok = ok && MHD_add_response_header(resp, MHD_HTTP_HEADER_CACHE_CONTROL, "no-store")
                    == MHD_YES;
     if (reply->allow[0])
         ok = ok && MHD_add_response_header(resp, MHD_HTTP_HEADER_ALLOW, reply->allow) == MHD_YES;
+    if (reply->is_auth_challenge)
+        ok = ok && MHD_add_response_header(resp, MHD_HTTP_HEADER_WWW_AUTHENTICATE,
+                                           "Bearer realm=\"weft admin\"") == MHD_YES;
     if (atomic_load(&d->is_draining))
         ok = ok && MHD_add_response_header(resp, MHD_HTTP_HEADER_CONNECTION, "close") == MHD_YES;
     enum MHD_Result rc = ok ? MHD_queue_response(conn, status, resp) : MHD_NO;
@@ -102,48 +107,184 @@ static enum MHD_Result send_reply(http_daemon *d, struct MHD_Connection *conn,
     return rc;
 }
 
-/* A request without a body is answered at the second call, once libmicrohttpd has seen the
- * whole request, so the connection can stay open for the next one. No route takes a body:
- * a request announcing one is answered at once, and the connection then closes instead of
- * reading it. */
-static bool has_body(struct MHD_Connection *conn)
+/* One request's progress, kept in *con_cls from its first call until libmicrohttpd reports
+ * it completed (on_completed frees it, also when the client went away mid-body). Add here
+ * whatever else a request must carry between calls. */
+struct exchange {
+    bool is_answered;     /* a response is queued: later calls only drain what is left */
+    bool is_too_large;    /* the body passed max_body: it is counted, not kept */
+    char *body;           /* the body so far (not NUL-terminated), or NULL */
+    size_t len, cap;
+    /* for the request counters and the access log (on_completed) */
+    struct timespec began;    /* CLOCK_MONOTONIC, when the headers had arrived */
+    double began_unix;        /* the same moment as Unix time */
+    char method[16];          /* cut to fit */
+    char path[384];           /* the decoded path, cut to fit */
+    size_t route;             /* http_reply.route */
+    bool is_wrong_method;
+    unsigned status;          /* as queued; 0 until then */
+    size_t bytes;             /* response body bytes */
+    bool has_version;         /* a snapshot was live for it */
+    uint64_t version;
+};
+
+/* Start an exchange's accounting: it counts as in flight until on_completed. */
+static void begin(http_daemon *d, struct exchange *ex, const char *method, const char *url)
+{
+    struct timespec now;
+    clock_gettime(CLOCK_MONOTONIC, &ex->began);
+    clock_gettime(CLOCK_REALTIME, &now);
+    ex->began_unix = (double)now.tv_sec + (double)now.tv_nsec / 1e9;
+    snprintf(ex->method, sizeof ex->method, "%s", method);
+    snprintf(ex->path, sizeof ex->path, "%s", url);
+    ex->route = HTTP_ROUTE_NONE;
+    http_metrics_begin(d->metrics);
+}
+
+/* Count the finished request and write its access-log line. */
+static void account(http_daemon *d, struct MHD_Connection *conn, const struct exchange *ex)
+{
+    struct timespec now;
+    clock_gettime(CLOCK_MONOTONIC, &now);
+    double seconds = (double)(now.tv_sec - ex->began.tv_sec)
+                     + (double)(now.tv_nsec - ex->began.tv_nsec) / 1e9;
+    http_metrics_end(d->metrics, ex->route, ex->is_wrong_method, ex->status, seconds,
+                     ex->status != 0);
+    const union MHD_ConnectionInfo *info =
+        MHD_get_connection_info(conn, MHD_CONNECTION_INFO_CLIENT_ADDRESS);
+    http_access a = {
+        .start = ex->began_unix, .method = ex->method, .path = ex->path, .route = ex->route,
+        .status = ex->status, .seconds = seconds, .bytes = ex->bytes,
+        .has_version = ex->has_version, .version = ex->version,
+        .remote = info ? info->client_addr : NULL,
+    };
+    http_access_log(d->cfg->access_log_fd, &a);
+}
+
+static void on_completed(void *cls, struct MHD_Connection *conn, void **con_cls,
+                         enum MHD_RequestTerminationCode why)
+{
+    (void)why;
+    struct exchange *ex = *con_cls;
+    if (ex) {
+        account(cls, conn, ex);
+        free(ex->body);
+        free(ex);
+        *con_cls = NULL;
+    }
+}
+
+/* The declared body length is over the limit (a chunked body is counted as it comes). */
+static bool is_declared_too_large(struct MHD_Connection *conn, size_t max_body)
 {
     const char *length =
         MHD_lookup_connection_value(conn, MHD_HEADER_KIND, MHD_HTTP_HEADER_CONTENT_LENGTH);
-    return MHD_lookup_connection_value(conn, MHD_HEADER_KIND,
-                                       MHD_HTTP_HEADER_TRANSFER_ENCODING)
-           || (length && strcmp(length, "0") != 0);
+    if (!length)
+        return false;
+    char *end = NULL;
+    unsigned long long n = strtoull(length, &end, 10);
+    return end == length || *end != '\0' || n > max_body;
 }
 
+/* Keep @p n more body bytes, or mark the body too large once it passes the limit. */
+static void collect(struct exchange *ex, const char *data, size_t n, size_t max_body)
+{
+    if (ex->is_too_large)
+        return;
+    if (n > max_body - ex->len) {
+        ex->is_too_large = true;
+        free(ex->body);
+        ex->body = NULL;
+        ex->len = ex->cap = 0;
+        return;
+    }
+    if (weft_grow_array((void **)&ex->body, &ex->cap, ex->len + n, 1) != 0) {
+        ex->is_too_large = true;   /* no memory for it: answered as too large, never cut */
+        free(ex->body);
+        ex->body = NULL;
+        ex->len = ex->cap = 0;
+        return;
+    }
+    memcpy(ex->body + ex->len, data, n);
+    ex->len += n;
+}
+
+static void too_large_reply(const http_settings *cfg, http_reply *reply)
+{
+    char hint[200];
+    snprintf(hint, sizeof hint,
+             "this server takes bodies of at most %zu bytes (weft serve --max-body) and at "
+             "most %zu items per call (--max-batch): split the batch",
+             cfg->max_body, cfg->max_batch);
+    http_error_reply(reply, HTTP_FAULT_TOO_LARGE, hint,
+                     "the request body is larger than %zu bytes", cfg->max_body);
+}
+
+/* Route the request (or answer 413), render and queue the response. */
+static enum MHD_Result answer(http_daemon *d, struct MHD_Connection *conn, const char *url,
+                              const char *method, struct exchange *ex)
+{
+    ex->is_answered = true;
+    http_model model;
+    bool has_model = http_live_acquire(d->live, &model);
+    http_request rq = { .conn = conn, .model = has_model ? &model : NULL, .settings = d->cfg,
+                        .live = d->live, .body = ex->body, .body_len = ex->len,
+                        .metrics = d->metrics, .is_draining = atomic_load(&d->is_draining) };
+    http_reply reply = { .status = MHD_HTTP_INTERNAL_SERVER_ERROR, .route = HTTP_ROUTE_NONE };
+    if (ex->is_too_large) {
+        too_large_reply(d->cfg, &reply);
+        reply.route = http_route_find(method, url, &reply.is_wrong_method);
+    } else {
+        http_route_dispatch(&rq, method, url, &reply);
+    }
+    size_t len = reply.text_len;
+    char *text = reply.text;   /* a handler's own text (GET /metrics), else the JSON body */
+    if (!text)
+        text = render(&reply, rq.model, http_route_is_pretty(conn), &len);
+    json_decref(reply.body);
+    ex->route = reply.route;
+    ex->is_wrong_method = reply.is_wrong_method;
+    ex->status = text ? reply.status : MHD_HTTP_INTERNAL_SERVER_ERROR;
+    ex->bytes = text ? len : sizeof fallback_body - 1;
+    ex->has_version = has_model;
+    ex->version = has_model ? model.version : 0;
+    http_model_release(&model);
+    return send_reply(d, conn, &reply, text, len);
+}
+
+/* libmicrohttpd calls this first for the headers, then once per chunk of the body, then once
+ * more with no data, where the response is queued; a request without a body thus gets its
+ * answer at the second call and the connection can stay open for the next one. A body
+ * declared larger than the limit is refused at once (the connection then closes instead of
+ * reading it); a chunked one is counted and dropped past the limit, then refused. */
 static enum MHD_Result on_request(void *cls, struct MHD_Connection *conn, const char *url,
                                   const char *method, const char *version,
                                   const char *upload_data, size_t *upload_data_size,
                                   void **con_cls)
 {
-    static int seen, answered; /* their addresses mark a request's progress in *con_cls */
     (void)version;
-    (void)upload_data;
     http_daemon *d = cls;
-    if (*con_cls == &answered || *upload_data_size != 0) {
-        *upload_data_size = 0; /* a body nobody reads */
+    struct exchange *ex = *con_cls;
+    if (!ex) {
+        if (!(ex = calloc(1, sizeof *ex)))
+            return MHD_NO;
+        *con_cls = ex;
+        begin(d, ex, method, url);
+        if (is_declared_too_large(conn, d->cfg->max_body)) {
+            ex->is_too_large = true;
+            return answer(d, conn, url, method, ex);
+        }
         return MHD_YES;
     }
-    if (!*con_cls && !has_body(conn)) {
-        *con_cls = &seen;
+    if (*upload_data_size != 0) {
+        if (!ex->is_answered)
+            collect(ex, upload_data, *upload_data_size, d->cfg->max_body);
+        *upload_data_size = 0;
         return MHD_YES;
     }
-    *con_cls = &answered;
-
-    http_model model;
-    bool has_model = http_live_acquire(d->live, &model);
-    http_request rq = { .conn = conn, .model = has_model ? &model : NULL, .settings = d->cfg };
-    http_reply reply = { .status = MHD_HTTP_INTERNAL_SERVER_ERROR };
-    http_route_dispatch(&rq, method, url, &reply);
-    size_t len = 0;
-    char *text = render(&reply, rq.model, http_route_is_pretty(conn), &len);
-    json_decref(reply.body);
-    http_model_release(&model);
-    return send_reply(d, conn, &reply, text, len);
+    if (ex->is_answered)
+        return MHD_YES;
+    return answer(d, conn, url, method, ex);
 }
 
 weft_err http_daemon_start(const http_settings *cfg, http_live *live, http_daemon **out,
@@ -155,6 +296,11 @@ weft_err http_daemon_start(const http_settings *cfg, http_live *live, http_daemo
     d->cfg = cfg;
     d->live = live;
     atomic_init(&d->is_draining, false);
+    weft_err rc = http_metrics_new(&d->metrics, err);
+    if (rc != WEFT_OK) {
+        free(d);
+        return rc;
+    }
     /* epoll with a pool of threads, each running its own event loop; ITC makes
      * MHD_quiesce_daemon possible, which the draining stop needs. One thread means no pool
      * (libmicrohttpd warns about a pool of one). */
@@ -163,6 +309,7 @@ weft_err http_daemon_start(const http_settings *cfg, http_live *live, http_daemo
     struct MHD_OptionItem options[] = {
         { MHD_OPTION_SOCK_ADDR, 0, (void *)&cfg->addr },
         { MHD_OPTION_CONNECTION_TIMEOUT, HTTP_TIMEOUT_SECONDS, NULL },
+        { MHD_OPTION_CONNECTION_MEMORY_LIMIT, HTTP_MEMORY_LIMIT, NULL },
         { MHD_OPTION_CONNECTION_LIMIT, HTTP_MAX_CONNECTIONS, NULL },
         /* last: with one thread it becomes the end of the list */
         { cfg->n_threads > 1 ? MHD_OPTION_THREAD_POOL_SIZE : MHD_OPTION_END,
@@ -171,8 +318,10 @@ weft_err http_daemon_start(const http_settings *cfg, http_live *live, http_daemo
     };
     d->mhd = MHD_start_daemon(flags, cfg->port, NULL, NULL, on_request, d,
                               MHD_OPTION_EXTERNAL_LOGGER, log_mhd, NULL, /* first, or it warns */
+                              MHD_OPTION_NOTIFY_COMPLETED, on_completed, d,
                               MHD_OPTION_ARRAY, options, MHD_OPTION_END);
     if (!d->mhd) {
+        http_metrics_free(d->metrics);
         free(d);
         return weft_error_set(err, WEFT_ERR_IO, "cannot serve on %s (see the message above)",
                               cfg->listen);
@@ -205,5 +354,6 @@ void http_daemon_stop(http_daemon *d, unsigned drain_ms)
     MHD_stop_daemon(d->mhd);
     if (listener != MHD_INVALID_SOCKET)
         close(listener);
+    http_metrics_free(d->metrics);
     free(d);
 }

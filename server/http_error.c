@@ -28,6 +28,13 @@ static const struct fault_row {
     [HTTP_FAULT_NO_SNAPSHOT] = { MHD_HTTP_SERVICE_UNAVAILABLE, "no_snapshot",
                                  "no snapshot is live yet: run 'weft train --store DIR ...'; "
                                  "the server picks it up without a restart" },
+    [HTTP_FAULT_UNAUTHORIZED] = { MHD_HTTP_UNAUTHORIZED, "unauthorized",
+                                  "send the admin token as 'Authorization: Bearer TOKEN'" },
+    [HTTP_FAULT_UNPROCESSABLE] = { MHD_HTTP_UNPROCESSABLE_CONTENT, "unprocessable",
+                                   "the message names the field at fault" },
+    [HTTP_FAULT_BUSY] = { MHD_HTTP_SERVICE_UNAVAILABLE, "busy",
+                          "the action may still complete: GET /v1/snapshots shows the store's "
+                          "head" },
 };
 
 /* How a weft error code reaches a client. */

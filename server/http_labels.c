@@ -163,6 +163,25 @@ static json_t *observed_json(const weft_label_view *v, uint32_t node)
                      weft_labels_part_name((weft_label_part)v->part[node]));
 }
 
+/* {"node", "predicted", "probability", "classes", "observed"} of @p node; NULL when out of
+ * memory. */
+static json_t *prediction_json(const weft_label_view *v, uint32_t node)
+{
+    uint32_t predicted = predicted_class(v, node);
+    json_t *body = body_json(v, node, predicted);
+    bool bad = !body;
+    bad |= json_object_set_new(body, "probability",
+                               number_json(v->prob[(size_t)node * v->n_classes + predicted]))
+           != 0;
+    bad |= json_object_set_new(body, "classes", classes_json(v, node)) != 0;
+    bad |= json_object_set_new(body, "observed", observed_json(v, node)) != 0;
+    if (bad) {
+        json_decref(body);
+        return NULL;
+    }
+    return body;
+}
+
 void http_labels_predict(const http_request *rq, http_reply *out)
 {
     if (!has_label_model(rq, out))
@@ -175,16 +194,86 @@ void http_labels_predict(const http_request *rq, http_reply *out)
         http_error_from(out, &err, err.code == WEFT_ERR_NOT_FOUND ? hint_node : hint_missing);
         return;
     }
-    uint32_t predicted = predicted_class(v, node);
-    json_t *body = body_json(v, node, predicted);
-    bool bad = !body;
-    bad |= json_object_set_new(body, "probability",
-                               number_json(v->prob[(size_t)node * v->n_classes + predicted]))
-           != 0;
-    bad |= json_object_set_new(body, "classes", classes_json(v, node)) != 0;
-    bad |= json_object_set_new(body, "observed", observed_json(v, node)) != 0;
+    json_t *body = prediction_json(v, node);
     out->status = MHD_HTTP_OK;
-    out->body = body_finish(body, bad, rq);
+    out->body = body_finish(body, !body, rq);
+}
+
+/* ---- POST /v1/labels/predict ---- */
+
+/* One item of "nodes": its prediction, or {"error", "status"} when the snapshot does not
+ * know the node (404) or the name is empty (400), as GET would answer. */
+static json_t *batch_item_json(const http_request *rq, const json_t *name)
+{
+    const weft_label_view *v = &rq->model->labels;
+    uint32_t node = 0;
+    weft_error err;
+    weft_error_clear(&err);
+    const char *s = json_string_value(name);
+    size_t len = json_string_length(name);
+    if (len == 0)
+        weft_error_set(&err, WEFT_ERR_INVALID, "a node name is empty");
+    else if (!weft_names_find(&v->nodes, s, len, &node))
+        weft_error_set(&err, WEFT_ERR_NOT_FOUND, "node '%s' is not in snapshot %llu", s,
+                       (unsigned long long)rq->model->version);
+    if (err.code == WEFT_OK)
+        return prediction_json(v, node);
+    http_reply r = { 0 };
+    http_error_from(&r, &err, err.code == WEFT_ERR_NOT_FOUND ? hint_node : NULL);
+    if (r.body && json_object_set_new(r.body, "status", json_integer((json_int_t)r.status))) {
+        json_decref(r.body);
+        return NULL;
+    }
+    return r.body;
+}
+
+/* {"nodes": [names]} -> {"results": [...], "snapshot", "caution"}, in order. The body's shape
+ * is checked first (422, or 413 past --max-batch); an unknown node answers in its place. */
+void http_labels_predict_batch(const http_request *rq, http_reply *out)
+{
+    if (!has_label_model(rq, out))
+        return;
+    json_t *body = http_route_body(rq, out);
+    if (!body)
+        return;
+    static const char *const keys[] = { "nodes", NULL };
+    const json_t *nodes = json_object_get(body, "nodes");
+    size_t n = json_array_size(nodes), max = rq->settings->max_batch;
+    char hint[160];
+    snprintf(hint, sizeof hint, "send {\"nodes\": [\"name\", ...]} with 1 to %zu names", max);
+    bool ok = http_route_known_keys(body, keys, "the body", out);
+    if (ok && (!json_is_array(nodes) || n == 0)) {
+        http_error_reply(out, HTTP_FAULT_UNPROCESSABLE, hint,
+                         "'nodes' must be a non-empty array of node names");
+        ok = false;
+    } else if (ok && n > max) {
+        snprintf(hint, sizeof hint, "this server takes at most %zu items per call (weft serve "
+                                    "--max-batch): split the batch", max);
+        http_error_reply(out, HTTP_FAULT_TOO_LARGE, hint, "'nodes' holds %zu items", n);
+        ok = false;
+    }
+    for (size_t i = 0; ok && i < n; i++)
+        if (!json_is_string(json_array_get(nodes, i))) {
+            http_error_reply(out, HTTP_FAULT_UNPROCESSABLE, hint, "nodes[%zu] must be a string",
+                             i);
+            ok = false;
+        }
+    json_t *results = ok ? json_array() : NULL;
+    for (size_t i = 0; results && i < n; i++)
+        if (json_array_append_new(results, batch_item_json(rq, json_array_get(nodes, i)))) {
+            json_decref(results);
+            results = NULL;
+        }
+    if (ok) {
+        json_t *answer = json_object();
+        bool bad = !answer || !results;
+        bad |= json_object_set_new(answer, "results", results) != 0;
+        out->status = MHD_HTTP_OK;
+        out->body = body_finish(answer, bad, rq);
+        if (!out->body)
+            http_error_reply(out, HTTP_FAULT_INTERNAL, NULL, "out of memory building the answer");
+    }
+    json_decref(body);
 }
 
 /* ---- GET /v1/labels/explain ---- */

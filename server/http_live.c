@@ -6,16 +6,33 @@
 
 #include <errno.h>
 #include <pthread.h>
+#include <stdatomic.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <sys/stat.h>
 #include <time.h>
 
+#include "weft/names.h"
 #include "weft/store.h"
+
+/* How often the loader looks at the input files' sizes and times for the coverage check. */
+#define COVERAGE_CHECK_MS 5000
+
+/* One admin action on its way through the loader. Shared by the request that queued it and
+ * the loader; the last of the two to let go frees it (refs, under lock). */
+struct admin_job {
+    struct admin_job *next;
+    http_admin_action action;
+    char reason[512];
+    http_admin_result result;
+    int refs;
+};
 
 struct http_live {
     const char *dir;
     unsigned poll_ms;
+    bool is_writable;           /* the store is opened for admin writes */
     weft_store *store;          /* loader thread only (and start/stop around it) */
     uint64_t loaded;            /* version the loader last published (0 none) */
     uint64_t refused;           /* version that failed to open; not retried */
@@ -26,10 +43,28 @@ struct http_live {
     pthread_mutex_t lock;       /* guards current and is_stopping */
     pthread_cond_t wake;        /* signalled by http_live_stop() */
     bool is_stopping;
+    pthread_cond_t done;        /* signalled when an admin job finishes */
+    struct admin_job *jobs;     /* queued admin actions, oldest first (under lock) */
+    /* The store's history for GET /v1/snapshots, built by the loader, copied by requests
+     * (under lock); NULL until first read. */
+    json_t *history;
+    uint64_t history_live, history_previous;   /* the head it was read at (loader only) */
+    struct timespec history_at;                /* when it was read (loader only) */
     /* The published model: the one mutable global state of the server. Set by the loader
      * only; readers copy it and acquire its snapshot while holding lock. NULL when no
      * snapshot is live. The loader owns this copy's reference. */
     http_model *current;
+    /* For the model checks (http_health.c) and /metrics. */
+    atomic_uint_fast64_t n_swaps, n_load_failures;
+    uint64_t failed_version;    /* the last version counted as a load failure (loader only) */
+    bool wants_drift;           /* the current model was loaded with no model held: measure
+                                   its drift from drift_previous at the next poll (loader) */
+    uint64_t drift_previous;
+    char *inputs;               /* --inputs, comma-separated, or NULL (under lock) */
+    unsigned inputs_gen;        /* bumped by http_live_set_inputs (under lock) */
+    unsigned coverage_gen;      /* the inputs_gen coverage was last measured with (loader) */
+    uint64_t coverage_sig;      /* sizes and times of the files it read (loader) */
+    struct timespec coverage_at;   /* when the loader last looked at them */
 };
 
 /* Log @p err unless it repeats the last problem logged (a store that is not there yet would
@@ -80,6 +115,12 @@ static weft_err load(http_live *live, uint64_t version, http_model **out, weft_e
         rc = weft_snapshot_label_view(m->snap, &m->labels, &part_err);
         m->has_labels = rc == WEFT_OK;
     }
+    if (rc == WEFT_OK) {   /* node types are optional; broken ones refuse the snapshot */
+        weft_err trc = weft_snapshot_types_view(m->snap, &m->types, &part_err);
+        m->has_types = trc == WEFT_OK;
+        if (trc != WEFT_OK && trc != WEFT_ERR_NOT_FOUND)
+            rc = trc;
+    }
     if (rc == WEFT_ERR_NOT_FOUND)
         rc = m->has_links ? WEFT_OK
                           : weft_error_set(&part_err, WEFT_ERR_CORRUPT,
@@ -104,13 +145,94 @@ static const char *parts_note(const http_model *m)
     return m->has_links ? " (link model only)" : " (label model only)";
 }
 
+static double unix_now(void)
+{
+    struct timespec ts;
+    clock_gettime(CLOCK_REALTIME, &ts);
+    return (double)ts.tv_sec + (double)ts.tv_nsec / 1e9;
+}
+
+/* Publish a copy of the current model with @p checks: the same version and snapshot (one
+ * more reference), new figures. Not a swap. Loader only. */
+static void amend(http_live *live, const http_checks *checks)
+{
+    http_model *copy = live->current ? malloc(sizeof *copy) : NULL;
+    if (!copy)
+        return;
+    *copy = *live->current;
+    copy->checks = *checks;
+    weft_snapshot_acquire(copy->snap);
+    publish(live, copy);
+}
+
+/* Drift of the current model (loaded with no model held: at start-up, or after the map was
+ * remapped) from the store's previous version, opened only for this. Runs at the loader's
+ * next poll, so that start-up does not wait for it. */
+static void drift_from_store(http_live *live)
+{
+    if (!live->wants_drift || !live->current)
+        return;
+    live->wants_drift = false;
+    uint64_t previous = live->drift_previous;
+    http_model now = *live->current;
+    weft_error err;
+    weft_error_clear(&err);
+    http_model *before = NULL;
+    if (!previous || previous == now.version) {
+        now.checks.drift = HTTP_MEASURE_NONE;
+        snprintf(now.checks.drift_note, sizeof now.checks.drift_note,
+                 "the store has no previous version to compare with");
+    } else if (load(live, previous, &before, &err) != WEFT_OK) {
+        now.checks.drift = HTTP_MEASURE_FAILED;
+        snprintf(now.checks.drift_note, sizeof now.checks.drift_note,
+                 "the previous version %llu could not be loaded: %.80s",
+                 (unsigned long long)previous, err.msg);
+    } else {
+        http_checks_drift(&now, before);
+        weft_snapshot_release(before->snap);
+        free(before);
+    }
+    amend(live, &now.checks);
+}
+
+/* Make @p m live: measure it (blobs, norms, drift from the model it replaces) before the
+ * swap, so that requests keep the old model meanwhile and the first requests on the new one
+ * share no core with the measuring. */
+static void make_live(http_live *live, http_model *m, uint64_t previous)
+{
+    weft_error err;
+    weft_error_clear(&err);
+    if (http_checks_scan(m, &err) != WEFT_OK)
+        http_log("version %llu: its checks are incomplete: %s", (unsigned long long)m->version,
+                 err.msg);
+    const http_model *held = live->current;   /* only the loader changes it */
+    if (held)
+        http_checks_drift(m, held);
+    m->checks.loaded = unix_now();
+    publish(live, m);
+    atomic_fetch_add(&live->n_swaps, 1);
+    live->wants_drift = held == NULL;
+    live->drift_previous = previous;
+}
+
+/* Count a version that failed to load, once per version (a transient failure is retried at
+ * every poll). */
+static void count_failure(http_live *live, uint64_t version)
+{
+    if (live->failed_version == version)
+        return;
+    live->failed_version = version;
+    atomic_fetch_add(&live->n_load_failures, 1);
+}
+
 /* One poll: open the store if needed, read the head, follow a change. */
 static void poll_once(http_live *live)
 {
     weft_error err;
     weft_error_clear(&err);
     if (!live->store
-        && weft_store_open(live->dir, WEFT_STORE_READONLY, 0, &live->store, &err) != WEFT_OK) {
+        && weft_store_open(live->dir, live->is_writable ? 0 : WEFT_STORE_READONLY, 0,
+                           &live->store, &err) != WEFT_OK) {
         live->store = NULL;
         log_problem(live, "store not readable yet (will retry)", &err);
         return;
@@ -147,6 +269,7 @@ static void poll_once(http_live *live)
         return;
     http_model *m = NULL;
     if (load(live, version, &m, &err) != WEFT_OK) {
+        count_failure(live, version);
         /* A stored version never changes, so a checksum or structure failure is final;
          * anything else (LMDB trouble, memory) is tried again at the next poll. */
         if (err.code == WEFT_ERR_CORRUPT || err.code == WEFT_ERR_NOT_FOUND)
@@ -163,7 +286,7 @@ static void poll_once(http_live *live)
     }
     live->last_problem[0] = '\0';
     http_log("serving version %llu%s", (unsigned long long)version, parts_note(m));
-    publish(live, m);
+    make_live(live, m, previous);
 }
 
 /* Sleep @p ms or until http_live_stop(); true when stopping. */
@@ -179,19 +302,265 @@ static bool wait_or_stop(http_live *live, unsigned ms)
     }
     pthread_mutex_lock(&live->lock);
     int rc = 0;
-    while (!live->is_stopping && rc != ETIMEDOUT)
+    while (!live->is_stopping && !live->jobs && rc != ETIMEDOUT)
         rc = pthread_cond_timedwait(&live->wake, &live->lock, &until);
     bool is_stopping = live->is_stopping;
     pthread_mutex_unlock(&live->lock);
     return is_stopping;
 }
 
+/* ---- the store's history and admin actions (loader thread) ---- */
+
+static double ms_since(const struct timespec *t)
+{
+    struct timespec now;
+    clock_gettime(CLOCK_MONOTONIC, &now);
+    return (double)(now.tv_sec - t->tv_sec) * 1e3 + (double)(now.tv_nsec - t->tv_nsec) / 1e6;
+}
+
+/* Reread the history when @p is_forced, when the head moved since it was read, or when it
+ * is older than HTTP_SNAPSHOTS_REFRESH_MS (a version written without a promotion leaves the
+ * head alone). A failed read keeps the list there was. */
+static void refresh_history(http_live *live, bool is_forced)
+{
+    if (!live->store)
+        return;
+    weft_error err;
+    weft_error_clear(&err);
+    uint64_t head = 0, previous = 0;
+    if (weft_store_head(live->store, &head, &previous, &err) != WEFT_OK)
+        return;
+    if (!is_forced && live->history && head == live->history_live &&
+        previous == live->history_previous && ms_since(&live->history_at) < HTTP_SNAPSHOTS_REFRESH_MS)
+        return;
+    json_t *list = NULL;
+    if (http_snapshots_read(live->store, &list, &err) != WEFT_OK) {
+        log_problem(live, "cannot read the store's history", &err);
+        return;
+    }
+    live->history_live = head;
+    live->history_previous = previous;
+    clock_gettime(CLOCK_MONOTONIC, &live->history_at);
+    pthread_mutex_lock(&live->lock);
+    json_t *old = live->history;
+    live->history = list;
+    pthread_mutex_unlock(&live->lock);
+    json_decref(old);
+}
+
+/* Drop one reference to @p job (under lock); the last frees it. */
+static void job_unref(struct admin_job *job)
+{
+    if (--job->refs == 0)
+        free(job);
+}
+
+/* Carry out @p job on the store, then follow the new head at once. */
+static void run_job(http_live *live, struct admin_job *job)
+{
+    http_admin_result *r = &job->result;
+    const http_admin_action *a = &job->action;
+    weft_error_clear(&r->err);
+    weft_store_change how = { a->reason, a->is_forced };
+    if (!live->store)
+        weft_error_set(&r->err, WEFT_ERR_STORE, "the store %s is not open yet", live->dir);
+    else if (a->is_rollback)
+        weft_store_rollback(live->store, &how, NULL, &r->err);
+    else
+        weft_store_promote_with(live->store, a->version, &how, &r->err);
+    if (r->err.code == WEFT_OK) {
+        if (a->is_rollback)
+            http_log("admin: rolled back%s%s", a->reason ? ": " : "", a->reason ? a->reason : "");
+        else
+            http_log("admin: promoted version %llu%s%s%s", (unsigned long long)a->version,
+                     a->is_forced ? " (forced)" : "", a->reason ? ": " : "",
+                     a->reason ? a->reason : "");
+        poll_once(live);
+    }
+    refresh_history(live, true);
+    weft_error ignored;
+    if (live->store)
+        weft_store_head(live->store, &r->live, &r->previous, &ignored);
+    r->serving = live->loaded;
+}
+
+/* Run every queued job, oldest first, and wake the requests waiting for them. */
+static void run_jobs(http_live *live)
+{
+    for (;;) {
+        pthread_mutex_lock(&live->lock);
+        struct admin_job *job = live->jobs;
+        if (job)
+            live->jobs = job->next;
+        pthread_mutex_unlock(&live->lock);
+        if (!job)
+            return;
+        run_job(live, job);
+        pthread_mutex_lock(&live->lock);
+        job->result.is_done = true;
+        pthread_cond_broadcast(&live->done);
+        job_unref(job);
+        pthread_mutex_unlock(&live->lock);
+    }
+}
+
+/* ---- the input files of the coverage check (loader thread) ---- */
+
+/* The files to read: --inputs, else the edge files the live manifest names (roles edges,
+ * valid, test) that can be read from here. Paths point into @p buf or the manifest. */
+static size_t input_paths(const http_live *live, char *buf, const char **paths, size_t max)
+{
+    size_t n = 0;
+    if (buf) {
+        char *save = NULL;
+        for (char *p = strtok_r(buf, ",", &save); p && n < max; p = strtok_r(NULL, ",", &save))
+            if (*p)
+                paths[n++] = p;
+        return n;
+    }
+    const json_t *inputs = json_object_get(weft_snapshot_manifest(live->current->snap), "inputs");
+    size_t i;
+    const json_t *in;
+    json_array_foreach(inputs, i, in) {
+        const char *role = json_string_value(json_object_get(in, "role"));
+        const char *path = json_string_value(json_object_get(in, "path"));
+        struct stat st;
+        if (n < max && role && path && stat(path, &st) == 0
+            && (!strcmp(role, "edges") || !strcmp(role, "valid") || !strcmp(role, "test")))
+            paths[n++] = path;
+    }
+    return n;
+}
+
+/* FNV-1a over each path with its size and modification time: changes when a file does. */
+static uint64_t files_signature(const char *const *paths, size_t n)
+{
+    uint64_t h = 1469598103934665603ull;
+    for (size_t i = 0; i < n; i++) {
+        struct stat st;
+        uint64_t v[3] = { 0, 0, 0 };
+        if (stat(paths[i], &st) == 0) {
+            v[0] = (uint64_t)st.st_size;
+            v[1] = (uint64_t)st.st_mtim.tv_sec;
+            v[2] = (uint64_t)st.st_mtim.tv_nsec;
+        }
+        const unsigned char *bytes[2] = { (const unsigned char *)paths[i],
+                                          (const unsigned char *)v };
+        size_t lens[2] = { strlen(paths[i]), sizeof v };
+        for (int k = 0; k < 2; k++)
+            for (size_t j = 0; j < lens[k]; j++)
+                h = (h ^ bytes[k][j]) * 1099511628211ull;
+    }
+    return h;
+}
+
+/* Measure coverage for a newly live version, for new --inputs, and when an input file
+ * changed (looked at every COVERAGE_CHECK_MS); publish the figures with amend(). */
+static void watch_inputs(http_live *live)
+{
+    if (!live->current)
+        return;
+    pthread_mutex_lock(&live->lock);
+    unsigned gen = live->inputs_gen;
+    char *buf = live->inputs ? strdup(live->inputs) : NULL;
+    bool is_short = live->inputs && !buf;
+    pthread_mutex_unlock(&live->lock);
+    bool is_due = live->current->checks.coverage == HTTP_MEASURE_PENDING
+                  || gen != live->coverage_gen;
+    if (is_short || (!is_due && ms_since(&live->coverage_at) < COVERAGE_CHECK_MS)) {
+        free(buf);
+        return;
+    }
+    clock_gettime(CLOCK_MONOTONIC, &live->coverage_at);
+    const char *paths[64];
+    size_t n = input_paths(live, buf, paths, sizeof paths / sizeof paths[0]);
+    uint64_t sig = files_signature(paths, n);
+    if (is_due || sig != live->coverage_sig) {
+        http_model now = *live->current;
+        http_checks_coverage(&now, paths, n);
+        amend(live, &now.checks);
+        live->coverage_sig = sig;
+        live->coverage_gen = gen;
+    }
+    free(buf);
+}
+
+weft_err http_live_set_inputs(http_live *live, const char *inputs, weft_error *err)
+{
+    char *copy = inputs ? strdup(inputs) : NULL;
+    if (inputs && !copy)
+        return weft_error_set(err, WEFT_ERR_NOMEM, "no memory for --inputs");
+    pthread_mutex_lock(&live->lock);
+    free(live->inputs);
+    live->inputs = copy;
+    live->inputs_gen++;
+    pthread_mutex_unlock(&live->lock);
+    return WEFT_OK;
+}
+
+void http_live_get_counts(http_live *live, http_live_counts *out)
+{
+    out->swaps = atomic_load(&live->n_swaps);
+    out->load_failures = atomic_load(&live->n_load_failures);
+}
+
 static void *loader_main(void *arg)
 {
     http_live *live = arg;
-    while (!wait_or_stop(live, live->poll_ms))
+    while (!wait_or_stop(live, live->poll_ms)) {
+        run_jobs(live);
         poll_once(live);
+        drift_from_store(live);
+        watch_inputs(live);
+        refresh_history(live, false);
+    }
     return NULL;
+}
+
+void http_live_admin(http_live *live, const http_admin_action *a, unsigned timeout_ms,
+                     http_admin_result *out)
+{
+    memset(out, 0, sizeof *out);
+    struct admin_job *job = calloc(1, sizeof *job);
+    if (!job) {
+        out->is_done = true;
+        weft_error_set(&out->err, WEFT_ERR_NOMEM, "no memory for an admin action");
+        return;
+    }
+    job->action = *a;
+    if (a->reason) {
+        snprintf(job->reason, sizeof job->reason, "%s", a->reason);
+        job->action.reason = job->reason;
+    }
+    job->refs = 2;
+    struct timespec until;
+    clock_gettime(CLOCK_MONOTONIC, &until);
+    until.tv_sec += timeout_ms / 1000;
+    until.tv_nsec += (long)(timeout_ms % 1000) * 1000000L;
+    if (until.tv_nsec >= 1000000000L) {
+        until.tv_sec += 1;
+        until.tv_nsec -= 1000000000L;
+    }
+    pthread_mutex_lock(&live->lock);
+    struct admin_job **tail = &live->jobs;
+    while (*tail)
+        tail = &(*tail)->next;
+    *tail = job;
+    pthread_cond_signal(&live->wake);
+    int rc = 0;
+    while (!job->result.is_done && rc != ETIMEDOUT)
+        rc = pthread_cond_timedwait(&live->done, &live->lock, &until);
+    *out = job->result;
+    job_unref(job);
+    pthread_mutex_unlock(&live->lock);
+}
+
+json_t *http_live_snapshots(http_live *live)
+{
+    pthread_mutex_lock(&live->lock);
+    json_t *copy = live->history ? json_deep_copy(live->history) : NULL;
+    pthread_mutex_unlock(&live->lock);
+    return copy;
 }
 
 static weft_err init_sync(http_live *live, weft_error *err)
@@ -202,30 +571,38 @@ static weft_err init_sync(http_live *live, weft_error *err)
     int rc = pthread_condattr_setclock(&attr, CLOCK_MONOTONIC);
     if (rc == 0)
         rc = pthread_cond_init(&live->wake, &attr);
+    if (rc == 0 && (rc = pthread_cond_init(&live->done, &attr)) != 0)
+        pthread_cond_destroy(&live->wake);
     pthread_condattr_destroy(&attr);
     if (rc != 0)
         return weft_error_set(err, WEFT_ERR_NOMEM, "cannot set up the loader: %s", strerror(rc));
     rc = pthread_mutex_init(&live->lock, NULL);
     if (rc != 0) {
         pthread_cond_destroy(&live->wake);
+        pthread_cond_destroy(&live->done);
         return weft_error_set(err, WEFT_ERR_NOMEM, "cannot set up the loader: %s", strerror(rc));
     }
     return WEFT_OK;
 }
 
-weft_err http_live_start(const char *dir, unsigned poll_ms, http_live **out, weft_error *err)
+weft_err http_live_start(const char *dir, unsigned poll_ms, bool is_writable, http_live **out,
+                         weft_error *err)
 {
     http_live *live = calloc(1, sizeof *live);
     if (!live)
         return weft_error_set(err, WEFT_ERR_NOMEM, "no memory for the loader");
     live->dir = dir;
     live->poll_ms = poll_ms;
+    live->is_writable = is_writable;
+    atomic_init(&live->n_swaps, 0);
+    atomic_init(&live->n_load_failures, 0);
     weft_err rc = init_sync(live, err);
     if (rc != WEFT_OK) {
         free(live);
         return rc;
     }
     poll_once(live);
+    refresh_history(live, true);
     int prc = pthread_create(&live->thread, NULL, loader_main, live);
     if (prc != 0) {
         http_live_stop(live);
@@ -248,9 +625,23 @@ void http_live_stop(http_live *live)
         pthread_mutex_unlock(&live->lock);
         pthread_join(live->thread, NULL);
     }
+    /* Requests still waiting (none once the daemon stopped) learn that nothing was done. */
+    pthread_mutex_lock(&live->lock);
+    while (live->jobs) {
+        struct admin_job *job = live->jobs;
+        live->jobs = job->next;
+        weft_error_set(&job->result.err, WEFT_ERR_STORE, "the server is stopping");
+        job->result.is_done = true;
+        job_unref(job);
+    }
+    pthread_cond_broadcast(&live->done);
+    pthread_mutex_unlock(&live->lock);
+    json_decref(live->history);
+    free(live->inputs);
     publish(live, NULL);
     weft_store_close(live->store);
     pthread_cond_destroy(&live->wake);
+    pthread_cond_destroy(&live->done);
     pthread_mutex_destroy(&live->lock);
     free(live);
 }

@@ -2,19 +2,26 @@
 #include "http.h"
 
 #include <stdio.h>
+#include <stdlib.h>
 #include <string.h>
 
 #include "weft/io.h"
 
 static const char *const model_params[] = { NULL };
-static const char *const predict_params[] = { "source", "relation", "k", NULL };
+static const char *const predict_params[] = { "source", "target", "relation", "k", "direction",
+                                              "candidate_type", "include_known", NULL };
+static const char *const link_explain_params[] = { "source", "relation", "target", "k", NULL };
 static const char *const label_predict_params[] = { "node", NULL };
 static const char *const label_explain_params[] = { "node", "k", NULL };
+static const char *const node_params[] = { "neighbours", NULL };
+static const char *const similar_params[] = { "k", "candidate_type", NULL };
 
 /* Which part of a snapshot a route answers from. */
 enum route_needs { NEEDS_NOTHING, NEEDS_SNAPSHOT, NEEDS_LINKS, NEEDS_LABELS };
 
-/* Every route the server answers. A path may appear once per method. params lists the query
+/* Every route the server answers. A path may appear once per method. A path with one
+ * "{...}" segment is a pattern (see match_path); exact paths are listed before patterns that
+ * could match them, and a longer pattern before a shorter one. params lists the query
  * parameters the route takes besides "pretty"; any other is a 400, so that a misspelt
  * option is reported instead of ignored. NULL takes anything (probes add cache breakers).
  * needs: the dispatcher answers 503 while no snapshot is live and 404 when the live one lacks
@@ -27,12 +34,47 @@ static const struct route {
     enum route_needs needs;
 } routes[] = {
     { "GET", "/healthz", http_model_healthz, NULL, NEEDS_NOTHING },
+    { "GET", "/readyz", http_health_readyz, NULL, NEEDS_NOTHING },
+    { "GET", "/v1/health", http_health_get, model_params, NEEDS_NOTHING },
+    { "GET", "/metrics", http_metrics_get, NULL, NEEDS_NOTHING },
     { "GET", "/v1/model", http_model_get, model_params, NEEDS_SNAPSHOT },
     { "GET", "/v1/links/predict", http_links_predict, predict_params, NEEDS_LINKS },
+    { "POST", "/v1/links/predict", http_links_predict_batch, model_params, NEEDS_LINKS },
+    { "POST", "/v1/links/score", http_links_score, model_params, NEEDS_LINKS },
+    { "GET", "/v1/links/explain", http_links_explain, link_explain_params, NEEDS_LINKS },
     { "GET", "/v1/labels/predict", http_labels_predict, label_predict_params, NEEDS_LABELS },
+    { "POST", "/v1/labels/predict", http_labels_predict_batch, model_params, NEEDS_LABELS },
     { "GET", "/v1/labels/explain", http_labels_explain, label_explain_params, NEEDS_LABELS },
+    { "GET", "/v1/nodes/{name}/similar", http_nodes_similar, similar_params, NEEDS_LINKS },
+    { "GET", "/v1/nodes/{name}", http_nodes_get, node_params, NEEDS_SNAPSHOT },
+    { "GET", "/v1/snapshots", http_snapshots_get, model_params, NEEDS_NOTHING },
+    { "POST", "/v1/snapshots/rollback", http_snapshots_rollback, model_params, NEEDS_NOTHING },
+    { "POST", "/v1/snapshots/{version}/promote", http_snapshots_promote, model_params,
+      NEEDS_NOTHING },
 };
 #define N_ROUTES (sizeof routes / sizeof routes[0])
+
+/* Whether @p path matches route path @p pattern. A "{...}" segment matches one or more
+ * characters, slashes included (libmicrohttpd has already decoded %2F), so that a node name
+ * with a slash can be given; what follows the segment in the pattern must end the path.
+ * On a match, *@p arg and *@p arg_len are the matched part (within @p path), else NULL. */
+static bool match_path(const char *pattern, const char *path, const char **arg, size_t *arg_len)
+{
+    *arg = NULL;
+    *arg_len = 0;
+    const char *open = strchr(pattern, '{');
+    if (!open)
+        return !strcmp(pattern, path);
+    const char *close = strchr(open, '}');
+    size_t head = (size_t)(open - pattern), path_len = strlen(path);
+    size_t tail = close ? strlen(close + 1) : 0;
+    if (!close || strncmp(pattern, path, head) != 0 || path_len < head + tail + 1 ||
+        strcmp(path + path_len - tail, close + 1) != 0)
+        return false;
+    *arg = path + head;
+    *arg_len = path_len - head - tail;
+    return true;
+}
 
 static bool route_takes(const struct route *rt, const char *key)
 {
@@ -72,7 +114,8 @@ static void list_params(const struct route *rt, char *buf, size_t size)
         snprintf(buf + used, size - used, "pretty");
 }
 
-/* "GET /healthz, GET /v1/model, ...": every route, for the hint of a 404. */
+/* "GET /healthz, GET /v1/model, ...": every route, for the hint of a 404 (the spec test
+ * reads it to compare the routes with openapi/openapi.yaml). */
 static void list_routes(char *buf, size_t size)
 {
     size_t used = 0;
@@ -134,32 +177,56 @@ void http_route_dispatch(const http_request *rq, const char *method, const char 
                          http_reply *out)
 {
     const struct route *found = NULL;
-    size_t used = 0;
+    const char *arg = NULL, *found_arg = NULL;
+    size_t arg_len = 0, found_arg_len = 0, used = 0;
     out->allow[0] = '\0';
+    out->route = HTTP_ROUTE_NONE;   /* for the request counters: the first row whose path */
+    out->is_wrong_method = false;   /* matched, then the row that answers */
     for (size_t i = 0; i < N_ROUTES; i++) {
-        if (strcmp(routes[i].path, path) != 0)
+        if (!match_path(routes[i].path, path, &arg, &arg_len))
             continue;
-        if (!strcmp(routes[i].method, method))
+        if (out->route == HTTP_ROUTE_NONE)
+            out->route = i;
+        if (!found && !strcmp(routes[i].method, method)) {
             found = &routes[i];
-        if (used < sizeof out->allow)
+            found_arg = arg;
+            found_arg_len = arg_len;
+        }
+        if (used < sizeof out->allow && !strstr(out->allow, routes[i].method))
             used += (size_t)snprintf(out->allow + used, sizeof out->allow - used, "%s%s",
                                      used ? ", " : "", routes[i].method);
     }
     if (!found && !used) {
-        char hint[300];
+        char hint[1200];
         list_routes(hint, sizeof hint);
         out->allow[0] = '\0';
         http_error_reply(out, HTTP_FAULT_NOT_FOUND, hint, "no route %s %s", method, path);
         return;
     }
     if (!found) {
+        out->is_wrong_method = true;
         http_error_reply(out, HTTP_FAULT_METHOD, NULL, "%s %s is not supported; use %s",
                          method, path, out->allow);
         return;
     }
     out->allow[0] = '\0';
-    if (check_params(rq, found, out) && check_needs(rq, found, out))
-        found->handler(rq, out);
+    out->route = (size_t)(found - routes);
+    http_request with_arg = *rq;
+    char *arg_copy = NULL;
+    if (found_arg) {   /* a NUL-terminated copy: the path is too, but the tail follows it */
+        arg_copy = malloc(found_arg_len + 1);
+        if (!arg_copy) {
+            http_error_reply(out, HTTP_FAULT_INTERNAL, NULL, "out of memory routing %s", path);
+            return;
+        }
+        memcpy(arg_copy, found_arg, found_arg_len);
+        arg_copy[found_arg_len] = '\0';
+        with_arg.path_arg = arg_copy;
+        with_arg.path_arg_len = found_arg_len;
+    }
+    if (check_params(&with_arg, found, out) && check_needs(&with_arg, found, out))
+        found->handler(&with_arg, out);
+    free(arg_copy);
 }
 
 weft_err http_route_arg(const http_request *rq, const char *key, const char **value,
@@ -232,4 +299,83 @@ bool http_route_is_pretty(struct MHD_Connection *conn)
                                       &v, NULL) != MHD_YES)
         return false;
     return !v || (strcmp(v, "0") != 0 && strcmp(v, "false") != 0);
+}
+
+json_t *http_route_body(const http_request *rq, http_reply *out)
+{
+    if (!rq->body || rq->body_len == 0) {
+        http_error_reply(out, HTTP_FAULT_BAD_REQUEST,
+                         "send a JSON object with 'Content-Type: application/json'",
+                         "this route needs a JSON body");
+        return NULL;
+    }
+    json_error_t jerr;
+    json_t *body = json_loadb(rq->body, rq->body_len, JSON_REJECT_DUPLICATES, &jerr);
+    if (!body) {
+        http_error_reply(out, HTTP_FAULT_BAD_REQUEST,
+                         "the body must be one JSON object in UTF-8, each key once",
+                         "the body is not valid JSON: %s at line %d, column %d (byte %d)",
+                         jerr.text, jerr.line, jerr.column, jerr.position);
+        return NULL;
+    }
+    if (!json_is_object(body)) {
+        json_decref(body);
+        http_error_reply(out, HTTP_FAULT_UNPROCESSABLE, NULL,
+                         "the body must be a JSON object");
+        return NULL;
+    }
+    return body;
+}
+
+bool http_route_known_keys(const json_t *body, const char *const *keys, const char *where,
+                           http_reply *out)
+{
+    const char *key;
+    const json_t *value;
+    json_object_foreach((json_t *)body, key, value) {
+        const char *const *k = keys;
+        while (*k && strcmp(*k, key) != 0)
+            k++;
+        if (*k)
+            continue;
+        char hint[200];
+        size_t used = (size_t)snprintf(hint, sizeof hint, "%s takes: ", where);
+        for (k = keys; *k && used < sizeof hint; k++)
+            used += (size_t)snprintf(hint + used, sizeof hint - used, "%s%s",
+                                     k == keys ? "" : ", ", *k);
+        http_error_reply(out, HTTP_FAULT_UNPROCESSABLE, hint, "%s: unknown field '%s'", where,
+                         key);
+        return false;
+    }
+    return true;
+}
+
+size_t http_route_count(void)
+{
+    return N_ROUTES;
+}
+
+void http_route_info(size_t i, const char **method, const char **path)
+{
+    *method = i < N_ROUTES ? routes[i].method : "other";
+    *path = i < N_ROUTES ? routes[i].path : "unmatched";
+}
+
+size_t http_route_find(const char *method, const char *path, bool *is_wrong_method)
+{
+    size_t first = HTTP_ROUTE_NONE;
+    for (size_t i = 0; i < N_ROUTES; i++) {
+        const char *arg = NULL;
+        size_t arg_len = 0;
+        if (!match_path(routes[i].path, path, &arg, &arg_len))
+            continue;
+        if (!strcmp(routes[i].method, method)) {
+            *is_wrong_method = false;
+            return i;
+        }
+        if (first == HTTP_ROUTE_NONE)
+            first = i;
+    }
+    *is_wrong_method = first != HTTP_ROUTE_NONE;
+    return first;
 }

@@ -17,6 +17,7 @@
 #include "weft/sparse.h"
 #include "weft/train_gcn.h"
 #include "weft/store.h"
+#include "weft/types.h"
 
 /** One blob as stored: data points into the map, read-only. */
 typedef struct weft_blob {
@@ -141,6 +142,35 @@ weft_err weft_snapshot_put_labels(weft_store_writer *w, json_t *manifest, const 
                                   const weft_names *classes, const weft_gcn_trained *t,
                                   weft_sparse_norm norm, const weft_sparse *adj,
                                   const int32_t *y, const uint8_t *part, weft_error *err);
+
+/**
+ * Node types of a snapshot, read-only views into the map valid until the last release.
+ * Stored as blobs "types.{off,bytes,slots}" (a name table, weft_names_view layout) and
+ * "node.type" (u32 per node of the node table, WEFT_TYPES_NONE for none), with the
+ * manifest's "types" object {"count", "typed"}. They belong to the node table: neither model
+ * part owns them, and weft_snapshot_copy_part() does not carry them over.
+ */
+typedef struct weft_types_view {
+    size_t n_nodes, n_types;
+    weft_names_view names;    /**< the type names */
+    const uint32_t *of_node;  /**< (n_nodes): type id, or WEFT_TYPES_NONE */
+} weft_types_view;
+
+/**
+ * Fill @p out from @p snap's type blobs, checking them against the node table and each id
+ * against the type table.
+ * @return WEFT_OK, WEFT_ERR_NOT_FOUND (no types stored), WEFT_ERR_CORRUPT
+ */
+weft_err weft_snapshot_types_view(const weft_snapshot *snap, weft_types_view *out,
+                                  weft_error *err);
+
+/**
+ * Write node types @p t (over the node table a model part of this writer writes) into @p w,
+ * and set @p manifest's "types" object.
+ * @return WEFT_OK, WEFT_ERR_INVALID (an id out of range), the writer's errors
+ */
+weft_err weft_snapshot_put_types(weft_store_writer *w, json_t *manifest, const weft_types *t,
+                                 weft_error *err);
 
 /**
  * True when @p snap's node table holds exactly the names of @p nodes, in the same order (so

@@ -2,8 +2,9 @@
 # check NAME COMMAND...   runs COMMAND; counts and prints the result.
 # finish                  prints "N checks passed, N failed" and exits 1 on any failure.
 # free_port               prints a free loopback TCP port.
-# start_server STORE      starts weft serve on a free port in the background; sets PORT, SERVER_PID
-#                         and BASE, waits until /healthz answers; stop_server stops it.
+# start_server STORE [ARG...]  starts weft serve (with the extra ARGs) on a free port in the
+#                         background; sets PORT, SERVER_PID and BASE, waits until /healthz
+#                         answers; stop_server stops it.
 CHECKS_PASSED=0
 CHECKS_FAILED=0
 
@@ -33,7 +34,9 @@ free_port() {
 start_server() {
     PORT=$(free_port)
     BASE="http://127.0.0.1:$PORT"
-    "$WEFT" serve --store "$1" --listen "127.0.0.1:$PORT" >"$E2E_TMP/server.log" 2>&1 &
+    store=$1
+    shift
+    "$WEFT" serve --store "$store" --listen "127.0.0.1:$PORT" "$@" >"$E2E_TMP/server.log" 2>&1 &
     SERVER_PID=$!
     i=0
     while [ $i -lt 100 ]; do

@@ -34,12 +34,13 @@ request = function()
 end
 LUA
 # The poller: which version answers, every 50 ms, as (monotonic-free wall time, version).
-/usr/bin/python3 - "$PORT" "$E2E_TMP/seen.txt" <<'PY' &
-import http.client, json, sys, time
-port, out = int(sys.argv[1]), sys.argv[2]
-end = time.time() + 33
+# It runs until the promotions are over (the file "$E2E_TMP/stop" appears), at most 90 s.
+/usr/bin/python3 - "$PORT" "$E2E_TMP/seen.txt" "$E2E_TMP/stop" <<'PY' &
+import http.client, json, os, sys, time
+port, out, stop = int(sys.argv[1]), sys.argv[2], sys.argv[3]
+end = time.time() + 90
 with open(out, "w") as f:
-    while time.time() < end:
+    while time.time() < end and not os.path.exists(stop):
         try:
             c = http.client.HTTPConnection("127.0.0.1", port, timeout=2)
             c.request("GET", "/v1/links/predict?source=n0&k=1")
@@ -61,6 +62,8 @@ for v in 2 3 4 5 6 7 8 9 10 11 12 13 14 15; do
     t=$(/usr/bin/python3 -c 'import time; print("%.3f" % time.time())')
     "$WEFT" snapshots promote "$v" --store "$S" >>"$E2E_TMP/promote.log" 2>&1 && echo "$t $v" >>"$E2E_TMP/promoted.txt"
 done
+sleep 1.5   # the last promotion's switch is measured too
+touch "$E2E_TMP/stop"
 wait $WRK
 wait $POLLER
 cat "$E2E_TMP/wrk.txt"

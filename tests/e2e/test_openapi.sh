@@ -46,7 +46,8 @@ sys.exit(bad)' "$SPEC"
 # contract.py SPEC BASE CASE...: each CASE is "METHOD PATH STATUS". The answer must have
 # STATUS, be JSON, and match the schema the spec gives for that operation and status
 # (OpenAPI's nullable turned into JSON Schema). A path the spec does not list must answer
-# 404 with the Error schema.
+# 404 with the Error schema. A POST sends the body "x" (not JSON: 400). Routes with bodies
+# and path parameters are called with real bodies by tests/e2e/test_contract.sh.
 cat >"$E2E_TMP/contract.py" <<'EOF'
 import json, sys, urllib.error, urllib.request
 import yaml, jsonschema
@@ -85,8 +86,8 @@ for case in cases:
     problems = []
     if str(status) != want:
         problems.append(f"status {status}")
-    if headers.get("Content-Type") != "application/json":
-        problems.append(f"Content-Type {headers.get('Content-Type')}")
+    ctype = headers.get("Content-Type", "")
+    is_text = False   # a documented text/plain answer: the Prometheus text format 0.0.4
     if route in doc["paths"]:
         op = doc["paths"][route].get(method.lower())
         if op is None:
@@ -97,11 +98,17 @@ for case in cases:
             schema = None
         else:
             documented = resolve(documented)
-            schema = documented["content"]["application/json"]["schema"]
+            is_text = "text/plain" in documented["content"]
+            schema = None if is_text else documented["content"]["application/json"]["schema"]
             if status == 405 and "Allow" not in headers:
                 problems.append("405 without an Allow header")
     else:
         schema = {"$ref": "#/components/schemas/Error"}
+    if is_text and not (ctype.startswith("text/plain; version=0.0.4")
+                        and body.decode("utf-8").endswith("\n")):
+        problems.append(f"not the Prometheus text format: Content-Type {ctype}")
+    if not is_text and ctype != "application/json":
+        problems.append(f"Content-Type {ctype}")
     if schema is not None:
         try:
             jsonschema.Draft4Validator(schema, resolver=resolver).validate(json.loads(body))
@@ -119,6 +126,9 @@ start_server "$STORE" || finish
 check "empty store: responses match the spec" /usr/bin/python3 "$E2E_TMP/contract.py" \
     "$SPEC" "$BASE" \
     "GET /healthz 200" \
+    "GET /readyz 503" \
+    "GET /v1/health 503" \
+    "GET /metrics 200" \
     "GET /v1/model 503" \
     "GET /v1/links/predict?source=m0 503" \
     "GET /v1/labels/predict?node=m0 503" \
@@ -150,9 +160,19 @@ check "live snapshot: responses match the spec" /usr/bin/python3 "$E2E_TMP/contr
     "GET /v1/links/predict?source=m0&k=0 400" \
     "GET /v1/links/predict?source=m0&k=1001 400" \
     "GET /v1/links/predict?source=m0&top=3 400" \
-    "POST /v1/links/predict 405" \
+    "POST /v1/links/predict 400" \
+    "PUT /v1/links/predict 405" \
     "DELETE /v1/model 405" \
     "POST /healthz 405" \
+    "GET /readyz 200" \
+    "GET /readyz?pretty=1 200" \
+    "POST /readyz 405" \
+    "GET /v1/health 503" \
+    "GET /v1/health?pretty=1 503" \
+    "GET /v1/health?verbose=1 400" \
+    "DELETE /v1/health 405" \
+    "GET /metrics 200" \
+    "POST /metrics 405" \
     "GET /v1 404" \
     "GET /v1/links/predict/ 404" \
     "GET /v1/labels/predict?node=m0 404" \
@@ -185,13 +205,16 @@ start_server "$LSTORE" || finish
 check "label model: responses match the spec" /usr/bin/python3 "$E2E_TMP/contract.py" \
     "$SPEC" "$BASE" \
     "GET /v1/model 200" \
+    "GET /v1/health 503" \
+    "GET /metrics 200" \
     "GET /v1/labels/predict?node=m0 200" \
     "GET /v1/labels/predict?node=m33&pretty=1 200" \
     "GET /v1/labels/predict?node=nobody 404" \
     "GET /v1/labels/predict 400" \
     "GET /v1/labels/predict?node= 400" \
     "GET /v1/labels/predict?node=m0&k=3 400" \
-    "POST /v1/labels/predict 405" \
+    "POST /v1/labels/predict 400" \
+    "PUT /v1/labels/predict 405" \
     "GET /v1/labels/explain?node=m0 200" \
     "GET /v1/labels/explain?node=m33&k=1 200" \
     "GET /v1/labels/explain?node=m0&k=1000 200" \

@@ -153,8 +153,10 @@ check "unknown query parameter: 400 bad_request" is_error badparam 400 bad_reque
 get noroute /v1/nothing-here
 check "unknown route: 404 not_found" is_error noroute 404 not_found
 get post /v1/links/predict -X POST -d 'source=m0'
-check "POST predict: 405 method_not_allowed" is_error post 405 method_not_allowed
-check "POST predict: Allow: GET" grep -qi '^allow: GET' "$E2E_TMP/post.headers"
+check "POST predict with a form body: 400 bad_request (not JSON)" is_error post 400 bad_request
+get delete /v1/links/predict -X DELETE
+check "DELETE predict: 405 method_not_allowed" is_error delete 405 method_not_allowed
+check "DELETE predict: Allow: GET, POST" grep -qi '^allow: GET, POST' "$E2E_TMP/delete.headers"
 
 # ---- /healthz and /v1/model ----
 get health1 /healthz
