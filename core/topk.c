@@ -296,12 +296,19 @@ __attribute__((target("avx512f"))) static void offer_lanes(weft_topk *t,
 /* Rows whose sums advance together in the one-query scan: GROUP independent chains of adds
  * keep the adders busy while each waits on its previous add, and each chunk of the query is
  * loaded once for all of them. Measured with bench_topk beside ref_topk at 40,943 x 200
- * (one query, q/s over the reference's, median of 7 alternating rounds): 2 rows 0.81, 4 rows
- * 1.01, 8 rows 1.05, 16 rows 1.05; at 1,000,000 x 128 all are at the memory's pace.
- * Software prefetching was measured and left out: no gain at 1,000,000 x 128 (17.9 ms a
- * query 4 KiB ahead, 18.8 ms 16 KiB ahead, 17.6 ms without; read bandwidth 34 GB/s), and a
- * loss at 40,943 x 200 (1.04 against 1.12 without). */
+ * (one query, q/s over the reference's, median of 7 alternating rounds, without the
+ * prefetching below): 2 rows 0.81, 4 rows 1.01, 8 rows 1.05, 16 rows 1.05; at 1,000,000 x 128
+ * all are at the memory's pace. */
 enum { GROUP = 8 };
+
+/* At the start of each 16-row step, the scan asks for the step's bytes shifted this far
+ * ahead (one prefetch per 64-byte line, into L1): the rows the step reaches last and the
+ * start of the next step. Measured per fresh process (ms a query, mean of queries 2-13 and
+ * 28-40, 6 processes; OpenBLAS sgemv + heap beside): at 40,943 x 200 none 1.26 / 0.94,
+ * 2 KiB 0.88 / 0.85, 4 KiB 0.99 / 0.76, reference 1.16 / 1.25; at 1,000,000 x 128 (first 12
+ * queries) none 20.0, 2 KiB 18.4, 4 KiB 22.3, reference 28.5. (Repeated scans of the 33 MB
+ * matrix run faster than the memory's bandwidth allows, so part of it comes from L3.) */
+enum { PREFETCH_AHEAD = 2048 };
 
 /* Lane sums of GROUP consecutive rows (lane l over p = l, l + 16, ... < d; @p tail masks the
  * last d % 16), each into the accumulator whose output lane is its row's. */
@@ -335,8 +342,9 @@ AVX512 void group_lanes(__m512 acc[16], const float *const row[GROUP], int first
  * straddle two lines. Its chunks are put together from aligned loads instead, the upper half
  * of one line and the lower half of the next (valignd), so each line is loaded once; the
  * first line's lower half is the end of the row before. Same lanes, order and sums as
- * group_lanes. The rows must be GROUP consecutive rows of e. Measured at 40,943 x 200 (as
- * for GROUP, 9 rounds): 1.14 against 1.12 with plain loads. */
+ * group_lanes. The rows must be GROUP consecutive rows of e. Measured at 40,943 x 200 (q/s
+ * over the reference's, median of 9 rounds, without prefetching): 1.14, against 1.12 with
+ * plain loads. */
 AVX512 void group_lanes_half(__m512 acc[16], const float *const row[GROUP], int first_lane,
                              const float *q, size_t d_full, __mmask16 tail)
 {
@@ -389,7 +397,13 @@ __attribute__((target("avx512f"))) static void scan_avx512(const float *e, size_
     __mmask16 tail = (__mmask16)((1u << (d & 15)) - 1);
     bool is_half = d % 16 == 8 && (uintptr_t)e % 64 == 0;
     __m512 bar = _mm512_set1_ps(entry_bar(t));
+    const char *base = (const char *)e;
+    size_t bytes = n * d * sizeof *e, step = 16 * d * sizeof *e;
     for (size_t r0 = 0; r0 < n; r0 += 16) {
+        size_t from = r0 * d * sizeof *e + PREFETCH_AHEAD;
+        size_t to = from >= bytes ? from : bytes - from > step ? from + step : bytes;
+        for (size_t b = from; b < to; b += 64)
+            _mm_prefetch(base + b, _MM_HINT_T0);
         __m512 acc[16];
 #pragma GCC unroll 16
         for (int g = 0; g < 16; g += GROUP) {

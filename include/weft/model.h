@@ -1,6 +1,6 @@
 /* weft: link model kinds and the scoring they share. Every link model scores a candidate c
  * for an anchor node and relation as an inner product q . e_c, where the query vector q
- * depends on the model; so one kernel (weft_topk_scan, cblas_sgemv) ranks all of them. */
+ * depends on the model; so one kernel (weft_topk_scan) ranks all of them. */
 #ifndef WEFT_MODEL_H
 #define WEFT_MODEL_H
 
