@@ -19,31 +19,6 @@ TestSuite(classify_reference, .init = fixture_dir_create, .fini = fixture_dir_re
 
 enum { MAX_CLASSES = 8 };
 
-/* Path of @p rel beside this source file (relative to where the build ran, or absolute). */
-static const char *beside_source(const char *rel)
-{
-    static char path[1024];
-    const char *src = __FILE__;
-    const char *slash = strrchr(src, '/');
-    int dir_len = slash ? (int)(slash - src) : 1;
-    snprintf(path, sizeof path, "%.*s/%s", dir_len, slash ? src : ".", rel);
-    return path;
-}
-
-/* Run @p cmd, its output going to the fixture file reference.txt, and open that file once the
- * script has finished: a failed comparison then never leaves it writing into a removed
- * directory. */
-static FILE *run_script(const char *cmd)
-{
-    char full[4608];
-    snprintf(full, sizeof full, "%s > %s", cmd, fixture_path("reference.txt"));
-    int status = system(full);
-    cr_assert_eq(status, 0, "%s failed (status %d)", full, status);
-    FILE *f = fopen(fixture_path("reference.txt"), "r");
-    cr_assert_not_null(f);
-    return f;
-}
-
 /* Random but seeded predictions. Bit j of a mask stands for class j. */
 typedef struct prob_case {
     size_t n, k;
@@ -151,11 +126,11 @@ static void check_case(const prob_case *pc)
     cr_assert_eq(weft_classify_metrics_compute(prob, y, part, n, k, WEFT_LABEL_TEST, &m, &err),
                  WEFT_OK, "%s", err.msg);
 
-    char script[1024], cmd[4096];   /* beside_source() answers in one static buffer */
-    snprintf(script, sizeof script, "%s", beside_source("classify_sklearn.py"));
+    char script[1024], cmd[4096];   /* fixture_beside(__FILE__, ) answers in one static buffer */
+    snprintf(script, sizeof script, "%s", fixture_beside(__FILE__, "classify_sklearn.py"));
     snprintf(cmd, sizeof cmd, "/usr/bin/python3 %s %s %d %zu", script, fixture_path("case.txt"),
              WEFT_LABEL_TEST, k);
-    FILE *py = run_script(cmd);
+    FILE *py = fixture_run_script(cmd);
     size_t want_n;
     double acc, macro_f1, log_loss, log_loss_clipped, ece;
     cr_assert_eq(fscanf(py, " n %zu accuracy %lf macro_f1 %lf log_loss %lf log_loss_clipped %lf "

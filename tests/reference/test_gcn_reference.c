@@ -21,31 +21,6 @@ TestSuite(gcn_reference, .init = fixture_dir_create, .fini = fixture_dir_remove)
 /* float32 forward against float64 numpy: a few float roundings per term, some 40 terms. */
 #define GCN_TOL 1e-5
 
-/* Path of @p rel beside this source file (relative to where the build ran, or absolute). */
-static const char *beside_source(const char *rel)
-{
-    static char path[1024];
-    const char *src = __FILE__;
-    const char *slash = strrchr(src, '/');
-    int dir_len = slash ? (int)(slash - src) : 1;
-    snprintf(path, sizeof path, "%.*s/%s", dir_len, slash ? src : ".", rel);
-    return path;
-}
-
-/* Run @p cmd, its output going to the fixture file reference.txt, and open that file once the
- * script has finished: a failed comparison then never leaves it writing into a removed
- * directory. */
-static FILE *run_script(const char *cmd)
-{
-    char full[4608];
-    snprintf(full, sizeof full, "%s > %s", cmd, fixture_path("reference.txt"));
-    int status = system(full);
-    cr_assert_eq(status, 0, "%s failed (status %d)", full, status);
-    FILE *f = fopen(fixture_path("reference.txt"), "r");
-    cr_assert_not_null(f);
-    return f;
-}
-
 typedef enum input_kind {
     INPUT_IDENTITY,    /* one-hot features: X = I (n, n), built here */
     INPUT_PATTERN,     /* a sparse pattern written to a file, read by weft_features_load */
@@ -78,7 +53,7 @@ static weft_graph *karate_load(void)
     weft_graph *g = NULL;
     weft_error err;
     cr_assert_eq(weft_graph_new(0, &g, &err), WEFT_OK);
-    cr_assert_eq(weft_graph_load_edges(g, beside_source("../data/karate/edges.tsv"), &err),
+    cr_assert_eq(weft_graph_load_edges(g, fixture_beside(__FILE__, "../data/karate/edges.tsv"), &err),
                  WEFT_OK, "%s", err.msg);
     cr_assert_eq(weft_graph_finalize(g, &err), WEFT_OK, "%s", err.msg);
     cr_assert_eq(g->nodes.n, 34, "Zachary 1977 counts 34 members");
@@ -328,11 +303,11 @@ static void check_cases(const gcn_case *cases, size_t n_cases)
     for (size_t k = 0; k < n_cases; k++)
         run_case(&runs[k], &cases[k], g, k);
 
-    char script[1024], cmd[4096];   /* beside_source() answers in one static buffer */
-    snprintf(script, sizeof script, "%s", beside_source("gcn_numpy.py"));
+    char script[1024], cmd[4096];   /* fixture_beside(__FILE__, ) answers in one static buffer */
+    snprintf(script, sizeof script, "%s", fixture_beside(__FILE__, "gcn_numpy.py"));
     snprintf(cmd, sizeof cmd, "/usr/bin/python3 %s %s %s %zu", script,
-             beside_source("../data/karate/edges.tsv"), fixture_dir, n_cases);
-    FILE *py = run_script(cmd);
+             fixture_beside(__FILE__, "../data/karate/edges.tsv"), fixture_dir, n_cases);
+    FILE *py = fixture_run_script(cmd);
     size_t n = g->nodes.n;
     double *want = calloc(n * 8, sizeof *want);
     float *contrib = calloc(n * 8, sizeof *contrib);

@@ -23,31 +23,6 @@ enum { LP_MAX_ITER = 1000 };
  * within 1e-6 when this test was written). */
 #define LP_PROB_TOL 1e-5
 
-/* Path of @p rel beside this source file (relative to where the build ran, or absolute). */
-static const char *beside_source(const char *rel)
-{
-    static char path[1024];
-    const char *src = __FILE__;
-    const char *slash = strrchr(src, '/');
-    int dir_len = slash ? (int)(slash - src) : 1;
-    snprintf(path, sizeof path, "%.*s/%s", dir_len, slash ? src : ".", rel);
-    return path;
-}
-
-/* Run @p cmd, its output going to the fixture file reference.txt, and open that file once the
- * script has finished: a failed comparison then never leaves it writing into a removed
- * directory. */
-static FILE *run_script(const char *cmd)
-{
-    char full[4608];
-    snprintf(full, sizeof full, "%s > %s", cmd, fixture_path("reference.txt"));
-    int status = system(full);
-    cr_assert_eq(status, 0, "%s failed (status %d)", full, status);
-    FILE *f = fopen(fixture_path("reference.txt"), "r");
-    cr_assert_not_null(f);
-    return f;
-}
-
 /* Cora as weft reads it: the graph, its labels and the split. */
 typedef struct cora {
     weft_graph *g;
@@ -60,17 +35,17 @@ static void cora_load(cora *c)
     weft_error err;
     char path[1024];
     cr_assert_eq(weft_graph_new(WEFT_GRAPH_UNDIRECTED, &c->g, &err), WEFT_OK);
-    snprintf(path, sizeof path, "%s", beside_source("../data/cora/edges.tsv"));
+    snprintf(path, sizeof path, "%s", fixture_beside(__FILE__, "../data/cora/edges.tsv"));
     cr_assert_eq(weft_graph_load_edges(c->g, path, &err), WEFT_OK, "%s", err.msg);
     cr_assert_eq(weft_graph_finalize(c->g, &err), WEFT_OK, "%s", err.msg);
     weft_names_view nodes = weft_names_as_view(&c->g->nodes);
     cr_assert_eq(nodes.n, 2708, "Sen et al. 2008 count 2,708 papers");
-    snprintf(path, sizeof path, "%s", beside_source("../data/cora/labels.tsv"));
+    snprintf(path, sizeof path, "%s", fixture_beside(__FILE__, "../data/cora/labels.tsv"));
     cr_assert_eq(weft_labels_load(path, &nodes, &c->labels, &err), WEFT_OK, "%s", err.msg);
     cr_assert_eq(c->labels.classes.n, 7);
     c->part = calloc(nodes.n, sizeof *c->part);
     cr_assert_not_null(c->part);
-    snprintf(path, sizeof path, "%s", beside_source("../data/cora/split.tsv"));
+    snprintf(path, sizeof path, "%s", fixture_beside(__FILE__, "../data/cora/split.tsv"));
     cr_assert_eq(weft_labels_read_split(path, &nodes, &c->labels, c->part, &err), WEFT_OK, "%s",
                  err.msg);
 }
@@ -146,11 +121,11 @@ Test(label_prop_reference, cora_matches_scikit_learn,
                                                  prob, &n_iter, &err), WEFT_OK, "%s", err.msg);
     write_inputs(&c);
 
-    char script[1024], cmd[4096];   /* beside_source() answers in one static buffer */
-    snprintf(script, sizeof script, "%s", beside_source("label_prop_sklearn.py"));
+    char script[1024], cmd[4096];   /* fixture_beside(__FILE__, ) answers in one static buffer */
+    snprintf(script, sizeof script, "%s", fixture_beside(__FILE__, "label_prop_sklearn.py"));
     snprintf(cmd, sizeof cmd, "/usr/bin/python3 %s %s %s %d %g", script,
-             beside_source("../data/cora/edges.tsv"), fixture_dir, LP_MAX_ITER, LP_TOL);
-    FILE *py = run_script(cmd);
+             fixture_beside(__FILE__, "../data/cora/edges.tsv"), fixture_dir, LP_MAX_ITER, LP_TOL);
+    FILE *py = fixture_run_script(cmd);
     size_t want_iter;
     cr_assert_eq(fscanf(py, " iter %zu", &want_iter), 1, "no output from %s", cmd);
     /* The stopping sum is taken over float32 values here, float64 there: the step at which it

@@ -52,3 +52,23 @@ const char *fixture_write_text(const char *name, const char *text)
 {
     return fixture_write(name, text, strlen(text));
 }
+
+const char *fixture_beside(const char *file, const char *rel)
+{
+    static char path[1024];
+    const char *slash = strrchr(file, '/');
+    int dir_len = slash ? (int)(slash - file) : 1;
+    snprintf(path, sizeof path, "%.*s/%s", dir_len, slash ? file : ".", rel);
+    return path;
+}
+
+FILE *fixture_run_script(const char *cmd)
+{
+    char full[4608];
+    snprintf(full, sizeof full, "%s > %s", cmd, fixture_path("reference.txt"));
+    int status = system(full);
+    cr_assert_eq(status, 0, "%s failed (status %d)", full, status);
+    FILE *f = fopen(fixture_path("reference.txt"), "r");
+    cr_assert_not_null(f);
+    return f;
+}

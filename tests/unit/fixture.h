@@ -4,6 +4,7 @@
 #define WEFT_TESTS_FIXTURE_H
 
 #include <stddef.h>
+#include <stdio.h>
 
 /** The current test's directory (set by fixture_dir_create). */
 extern char fixture_dir[64];
@@ -22,5 +23,15 @@ const char *fixture_write(const char *name, const void *data, size_t len);
 
 /** fixture_write of a NUL-terminated text. */
 const char *fixture_write_text(const char *name, const char *text);
+
+/** Path of @p rel beside the source file @p file (pass __FILE__), in a static buffer. */
+const char *fixture_beside(const char *file, const char *rel);
+
+/**
+ * Run shell command @p cmd with its output going to the fixture file reference.txt, and open
+ * that file once the command has finished (so a failed comparison never leaves a script
+ * writing into a removed directory). Fails the test when the command fails.
+ */
+FILE *fixture_run_script(const char *cmd);
 
 #endif
