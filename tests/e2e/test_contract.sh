@@ -32,20 +32,9 @@ import yaml, jsonschema
 
 spec_path, base, token, cases_path = sys.argv[1:5]
 want_coverage = "--coverage" in sys.argv
-spec = json.loads(json.dumps(yaml.safe_load(open(spec_path)), default=str))
-
-def to_json_schema(x):
-    if isinstance(x, list):
-        return [to_json_schema(v) for v in x]
-    if not isinstance(x, dict):
-        return x
-    x = {k: to_json_schema(v) for k, v in x.items()}
-    if x.pop("nullable", False):
-        return {"anyOf": [x, {"type": "null"}]}
-    return x
-
-doc = to_json_schema(spec)
-resolver = jsonschema.RefResolver.from_schema(doc)
+sys.path.insert(0, os.path.join(os.environ["TOP"], "tests", "e2e"))
+import openapi_schema
+doc, resolver = openapi_schema.load(spec_path)
 METHODS = ("get", "put", "post", "delete", "patch", "head", "options")
 
 def resolve(node):

@@ -49,24 +49,13 @@ sys.exit(bad)' "$SPEC"
 # 404 with the Error schema. A POST sends the body "x" (not JSON: 400). Routes with bodies
 # and path parameters are called with real bodies by tests/e2e/test_contract.sh.
 cat >"$E2E_TMP/contract.py" <<'EOF'
-import json, sys, urllib.error, urllib.request
+import json, os, sys, urllib.error, urllib.request
 import yaml, jsonschema
 
 spec_path, base, cases = sys.argv[1], sys.argv[2], sys.argv[3:]
-spec = json.loads(json.dumps(yaml.safe_load(open(spec_path)), default=str))
-
-def to_json_schema(x):
-    if isinstance(x, list):
-        return [to_json_schema(v) for v in x]
-    if not isinstance(x, dict):
-        return x
-    x = {k: to_json_schema(v) for k, v in x.items()}
-    if x.pop("nullable", False):
-        return {"anyOf": [x, {"type": "null"}]}
-    return x
-
-doc = to_json_schema(spec)
-resolver = jsonschema.RefResolver.from_schema(doc)
+sys.path.insert(0, os.path.join(os.environ["TOP"], "tests", "e2e"))
+import openapi_schema
+doc, resolver = openapi_schema.load(spec_path)
 
 def resolve(node):
     while "$ref" in node:
