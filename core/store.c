@@ -67,8 +67,7 @@ const char *weft_store_state_name(weft_store_state state)
     return NULL;
 }
 
-/* "512 B", "9.4 KiB", "1.0 GiB" into @p out; returns @p out. */
-static const char *format_bytes(double n, char out[16])
+const char *weft_store_format_bytes(double n, char out[16])
 {
     static const char *const units[] = { "B", "KiB", "MiB", "GiB", "TiB" };
     size_t u = 0;
@@ -182,7 +181,7 @@ static weft_err set_map_size(weft_store *s, size_t size, weft_error *err)
     int rc = mdb_env_set_mapsize(s->env, size);
     if (rc)
         return weft_error_set(err, WEFT_ERR_LIMIT, "%s: cannot map %s: %s", s->dir,
-                              format_bytes((double)size, text), mdb_strerror(rc));
+                              weft_store_format_bytes((double)size, text), mdb_strerror(rc));
     return WEFT_OK;
 }
 
@@ -220,11 +219,11 @@ static weft_err disk_error(const weft_store *s, int rc, const char *what, weft_e
     struct statvfs vfs;
     if (statvfs(s->dir, &vfs) == 0)
         snprintf(room, sizeof room, "; %s free there",
-                 format_bytes((double)vfs.f_bavail * (double)vfs.f_frsize, text));
+                 weft_store_format_bytes((double)vfs.f_bavail * (double)vfs.f_frsize, text));
     struct rlimit rl;
     if (getrlimit(RLIMIT_FSIZE, &rl) == 0 && rl.rlim_cur != RLIM_INFINITY)
         snprintf(limit, sizeof limit, "; file size limit (ulimit -f) %s",
-                 format_bytes((double)rl.rlim_cur, text));
+                 weft_store_format_bytes((double)rl.rlim_cur, text));
     return weft_error_set(err, WEFT_ERR_IO,
                           "%s: writing %s/data.mdb failed: %s%s%s; nothing was stored, the "
                           "store is as it was", what, s->dir, why, room, limit);
@@ -239,11 +238,11 @@ static weft_err store_error(weft_store *s, int rc, const char *what, weft_error 
         if (!s->grow_to)
             return weft_error_set(err, WEFT_ERR_LIMIT, "%s: the store's map (%s) is full and "
                                   "cannot grow further", what,
-                                  format_bytes((double)map_size_of(s), now));
+                                  weft_store_format_bytes((double)map_size_of(s), now));
         return weft_error_set(err, WEFT_ERR_LIMIT, "%s: the store's map (%s) is full; it "
                               "grows to %s before the next write: write again", what,
-                              format_bytes((double)map_size_of(s), now),
-                              format_bytes((double)s->grow_to, next));
+                              weft_store_format_bytes((double)map_size_of(s), now),
+                              weft_store_format_bytes((double)s->grow_to, next));
     }
     if (rc == ENOSPC || rc == EDQUOT || rc == EFBIG || rc == EIO)
         return disk_error(s, rc, what, err);
@@ -292,7 +291,7 @@ weft_err weft_store_reserve(weft_store *s, size_t bytes, weft_error *err)
     char text[16];
     if (bytes > MAX_MAP_SIZE - used)
         return weft_error_set(err, WEFT_ERR_LIMIT, "%s: %s more do not fit in the largest map",
-                              s->dir, format_bytes((double)bytes, text));
+                              s->dir, weft_store_format_bytes((double)bytes, text));
     size_t want = map ? map : 1;
     while (want < used + bytes)
         want = want <= MAX_MAP_SIZE / 2 ? want * 2 : MAX_MAP_SIZE;

@@ -209,6 +209,23 @@ static bool should_stop(const struct run *r, size_t epoch0)
     return r->valid_loss[epoch0] > mean / (double)w;
 }
 
+/* Record epoch @p epoch0 (0-based; its validation loss in @p ep when @p has_valid), report
+ * it, and say whether the stopping rule ends training. */
+static bool end_epoch(struct run *r, weft_gcn_epoch *ep, size_t epoch0, double e0,
+                      bool has_valid, weft_gcn_progress_fn progress, void *ctx)
+{
+    bool stop = false;
+    if (has_valid) {
+        r->valid_loss[epoch0] = ep->valid_loss;
+        stop = should_stop(r, epoch0);
+    }
+    ep->seconds = now_seconds() - e0;
+    r->epoch_seconds[epoch0] = ep->seconds;
+    if (progress)
+        progress(ctx, ep);
+    return stop;
+}
+
 static void finish_result(struct run *r, size_t epochs_run, bool stopped, double t0,
                           weft_gcn_result *result)
 {
@@ -336,13 +353,8 @@ weft_err weft_train_gcn_classify(const weft_train_gcn_config *cfg, const weft_sp
             weft_gcn_forward(&r.cache, s, &r.p, &r.in, 0.0f, NULL, cfg->n_threads);
             class_loss(logits, y, part, n, n_classes, WEFT_LABEL_VALID, &ep.valid_loss,
                        &ep.valid_accuracy);
-            r.valid_loss[epoch] = ep.valid_loss;
-            stopped = should_stop(&r, epoch);
         }
-        ep.seconds = now_seconds() - e0;
-        r.epoch_seconds[epoch++] = ep.seconds;
-        if (progress)
-            progress(ctx, &ep);
+        stopped = end_epoch(&r, &ep, epoch++, e0, n_valid > 0, progress, ctx);
     }
     finish_result(&r, epoch, stopped, t0, result);
     rc = keep_outputs(&r, out, true, err);
@@ -501,13 +513,8 @@ weft_err weft_train_gcn_link(const weft_train_gcn_config *cfg, const weft_sparse
         if (n_valid) {
             weft_gcn_forward(&r.cache, s, &r.p, &r.in, 0.0f, NULL, cfg->n_threads);
             ep.valid_loss = link_loss(&ls, z, NULL, valid, n_valid, vneg, k, n, NULL);
-            r.valid_loss[epoch] = ep.valid_loss;
-            stopped = should_stop(&r, epoch);
         }
-        ep.seconds = now_seconds() - e0;
-        r.epoch_seconds[epoch++] = ep.seconds;
-        if (progress)
-            progress(ctx, &ep);
+        stopped = end_epoch(&r, &ep, epoch++, e0, n_valid > 0, progress, ctx);
     }
     finish_result(&r, epoch, stopped, t0, result);
     rc = keep_outputs(&r, out, false, err);

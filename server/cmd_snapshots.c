@@ -159,19 +159,6 @@ static int parse_args(int argc, char **argv, struct snap_opts *o)
 
 /* ---- reading manifests ---- */
 
-/* "512 B", "9.4 KiB", "1.0 GiB". */
-static const char *human_bytes(double n, char out[16])
-{
-    static const char *const units[] = { "B", "KiB", "MiB", "GiB", "TiB" };
-    size_t u = 0;
-    while (n >= 1024 && u + 1 < sizeof units / sizeof units[0]) {
-        n /= 1024;
-        u++;
-    }
-    snprintf(out, 16, u ? "%.1f %s" : "%.0f %s", n, units[u]);
-    return out;
-}
-
 static const char *str_of(const json_t *m, const char *key)
 {
     const char *s = json_string_value(json_object_get(m, key));
@@ -319,7 +306,7 @@ static void print_list_row(const json_t *m, uint64_t previous)
     note_text(m, note, sizeof note);
     snprintf(state, sizeof state, "%s%s", str_of(m, "state"), v == previous ? ", previous" : "");
     printf("%7llu  %-17s  %-20s  %-14s  %-24s  %10s%s%s\n", (unsigned long long)v, state,
-           str_of(m, "created"), kinds, metric, human_bytes(stored_bytes(m), size),
+           str_of(m, "created"), kinds, metric, weft_store_format_bytes(stored_bytes(m), size),
            note[0] ? "  " : "", note);
 }
 
@@ -398,7 +385,7 @@ static void print_blobs(const json_t *m)
     const json_t *desc;
     char size[16];
     printf("blobs (%zu, %s):\n", json_object_size(json_object_get(m, "blobs")),
-           human_bytes(stored_bytes(m), size));
+           weft_store_format_bytes(stored_bytes(m), size));
     printf("  %-24s  %-5s  %-20s  %12s  %s\n", "name", "dtype", "shape", "bytes", "crc32");
     json_object_foreach(json_object_get(m, "blobs"), name, desc) {
         char shape[64] = "";
@@ -536,10 +523,10 @@ static weft_err do_prune(weft_store *s, const struct snap_opts *o, weft_error *e
             printf("deleted version %lld (%s, %s)\n",
                    (long long)json_integer_value(json_object_get(d, "version")),
                    str_of(d, "state"),
-                   human_bytes((double)json_integer_value(json_object_get(d, "bytes")), size));
+                   weft_store_format_bytes((double)json_integer_value(json_object_get(d, "bytes")), size));
         printf("pruned %zu version%s (%s); live and previous kept, with at most %llu more\n",
                json_array_size(deleted), json_array_size(deleted) == 1 ? "" : "s",
-               human_bytes(total, size), (unsigned long long)o->keep);
+               weft_store_format_bytes(total, size), (unsigned long long)o->keep);
     }
     json_decref(deleted);
     return e;
@@ -556,7 +543,7 @@ static void print_report(const json_t *report)
         json_int_t v = json_integer_value(json_object_get(row, "version"));
         printf("version %lld: %lld blobs, %s: %s\n", (long long)v,
                (long long)json_integer_value(json_object_get(row, "blobs")),
-               human_bytes((double)json_integer_value(json_object_get(row, "bytes")), size),
+               weft_store_format_bytes((double)json_integer_value(json_object_get(row, "bytes")), size),
                json_is_true(json_object_get(row, "ok")) ? "ok" : "DAMAGED");
         json_array_foreach(json_object_get(report, "problems"), j, p)
             if (json_integer_value(json_object_get(p, "version")) == v)
@@ -623,7 +610,7 @@ static weft_err do_export(weft_store *s, const struct snap_opts *o, weft_error *
                                         "sha256", sha),
                               err);
     printf("exported version %llu to %s (%s, SHA-256 %s)\n", (unsigned long long)v, o->args[1],
-           human_bytes(bytes, size), sha);
+           weft_store_format_bytes(bytes, size), sha);
     return WEFT_OK;
 }
 

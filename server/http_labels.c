@@ -41,16 +41,16 @@ static weft_err resolve_node(const http_request *rq, const weft_label_view *v, u
     return WEFT_OK;
 }
 
-/* The dispatcher answers 503 or 404 before a label route runs without a label model
- * (http_route.c); this keeps a handler safe on its own. */
-static bool has_label_model(const http_request *rq, http_reply *out)
+/* The node of ?node=; false after filling @p out with the error. The route needs labels
+ * (http_route.c), so rq->model->labels is there. */
+static bool request_node(const http_request *rq, http_reply *out, uint32_t *node)
 {
-    if (!rq->model)
-        http_error_reply(out, HTTP_FAULT_NO_SNAPSHOT, NULL, "no snapshot is live yet");
-    else if (!rq->model->has_labels)
-        http_error_reply(out, HTTP_FAULT_NOT_FOUND, NULL, "snapshot %llu has no label model",
-                         (unsigned long long)rq->model->version);
-    return rq->model && rq->model->has_labels;
+    weft_error err;
+    weft_error_clear(&err);
+    if (resolve_node(rq, &rq->model->labels, node, &err) == WEFT_OK)
+        return true;
+    http_error_from(out, &err, err.code == WEFT_ERR_NOT_FOUND ? hint_node : hint_missing);
+    return false;
 }
 
 /* The class of highest probability; the lowest class id on a tie. */
@@ -184,16 +184,10 @@ static json_t *prediction_json(const weft_label_view *v, uint32_t node)
 
 void http_labels_predict(const http_request *rq, http_reply *out)
 {
-    if (!has_label_model(rq, out))
-        return;
     const weft_label_view *v = &rq->model->labels;
-    weft_error err;
-    weft_error_clear(&err);
     uint32_t node = 0;
-    if (resolve_node(rq, v, &node, &err) != WEFT_OK) {
-        http_error_from(out, &err, err.code == WEFT_ERR_NOT_FOUND ? hint_node : hint_missing);
+    if (!request_node(rq, out, &node))
         return;
-    }
     json_t *body = prediction_json(v, node);
     out->status = MHD_HTTP_OK;
     out->body = body_finish(body, !body, rq);
@@ -231,8 +225,6 @@ static json_t *batch_item_json(const http_request *rq, const json_t *name)
  * is checked first (422, or 413 past --max-batch); an unknown node answers in its place. */
 void http_labels_predict_batch(const http_request *rq, http_reply *out)
 {
-    if (!has_label_model(rq, out))
-        return;
     json_t *body = http_route_body(rq, out);
     if (!body)
         return;
@@ -418,17 +410,13 @@ static json_t *explain_json(const http_request *rq, const struct attribution *a,
 
 void http_labels_explain(const http_request *rq, http_reply *out)
 {
-    if (!has_label_model(rq, out))
-        return;
     const weft_label_view *v = &rq->model->labels;
+    uint32_t node = 0;
+    if (!request_node(rq, out, &node))
+        return;
+    size_t k = 0;
     weft_error err;
     weft_error_clear(&err);
-    uint32_t node = 0;
-    if (resolve_node(rq, v, &node, &err) != WEFT_OK) {
-        http_error_from(out, &err, err.code == WEFT_ERR_NOT_FOUND ? hint_node : hint_missing);
-        return;
-    }
-    size_t k = 0;
     if (http_route_arg_count(rq, "k", HTTP_DEFAULT_K, HTTP_EXPLAIN_MAX_K, &k, &err) != WEFT_OK) {
         char hint[160];
         snprintf(hint, sizeof hint,

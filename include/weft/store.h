@@ -54,6 +54,9 @@ const char *weft_dtype_name(weft_dtype t);
 /** Size of one element in bytes; 0 for an unknown value. */
 size_t weft_dtype_size(weft_dtype t);
 
+/** @p n bytes for people, "512 B", "9.4 KiB", "1.0 GiB", written into @p out; returns @p out. */
+const char *weft_store_format_bytes(double n, char out[16]);
+
 /** An open store. Opaque; one per process per directory (an LMDB rule). */
 typedef struct weft_store weft_store;
 
