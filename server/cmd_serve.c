@@ -23,7 +23,7 @@
 void openblas_set_num_threads(int n);
 
 #define SUB "serve"
-#define MAX_THREADS 256
+#define MAX_CONNECTIONS_LIMIT 16384
 #define MAX_K_LIMIT 1000000
 #define MAX_BATCH_LIMIT 100000
 #define MAX_BODY_LIMIT (1ull << 30)
@@ -32,7 +32,7 @@ void openblas_set_num_threads(int n);
 #define MAX_TOKEN_BYTES 4096
 
 static const char usage_text[] =
-    "usage: weft serve --store DIR [--listen ADDR:PORT] [--threads N] [--max-k N]\n"
+    "usage: weft serve --store DIR [--listen ADDR:PORT] [--max-connections N] [--max-k N]\n"
     "                  [--max-batch N] [--max-body BYTES] [--admin-token-file FILE]\n"
     "                  [--poll-ms N] [--max-age AGE] [--access-log FILE] [--inputs FILE,...]\n"
     "\n"
@@ -43,8 +43,8 @@ static const char usage_text[] =
     "  --store DIR         the snapshot store; it may still be empty\n"
     "  --listen ADDR:PORT  numeric address to listen on (default 127.0.0.1:8080;\n"
     "                      IPv6 as [::1]:8080)\n"
-    "  --threads N         request threads, 1 to 256 (default: 16 per usable core, at\n"
-    "                      least 32; most wait for a top-k pass shared with others)\n"
+    "  --max-connections N connections open at once, each served by its own thread; more\n"
+    "                      wait in the listen backlog (default 1024, at most 16384)\n"
     "  --scan-threads N    top-k passes that may run at once (default: the usable cores)\n"
     "  --max-k N           most predictions one request may ask for (default 1000)\n"
     "  --max-batch N       most queries, triples or nodes one POST may hold (default 1000)\n"
@@ -217,20 +217,12 @@ static unsigned usable_cpus(void)
     return n < 1 ? 1 : n > HTTP_SCAN_MAX_LEADERS ? HTTP_SCAN_MAX_LEADERS : (unsigned)n;
 }
 
-/* Request threads by default: many wait for a shared top-k pass (http_scan.c) while one per
- * core computes, so a pass can serve as many requests as there are threads (ours: 16 per
- * core, at least 32; measured in bench/service.sh). */
-static unsigned default_threads(void)
-{
-    unsigned n = 16 * usable_cpus();
-    return n < 32 ? 32 : n > MAX_THREADS ? MAX_THREADS : n;
-}
-
 /* Fill @p cfg from argv. @return -1 to go on, else the exit status (help, usage error). */
 static int parse_args(int argc, char **argv, http_settings *cfg)
 {
     const char *listen_text = "127.0.0.1:8080";
-    uint64_t threads = default_threads(), scan = usable_cpus(), max_k = HTTP_DEFAULT_MAX_K, poll_ms = HTTP_DEFAULT_POLL_MS;
+    uint64_t connections = HTTP_DEFAULT_MAX_CONNECTIONS, scan = usable_cpus();
+    uint64_t max_k = HTTP_DEFAULT_MAX_K, poll_ms = HTTP_DEFAULT_POLL_MS;
     uint64_t max_batch = HTTP_DEFAULT_MAX_BATCH, max_body = HTTP_DEFAULT_MAX_BODY;
     const char *token_file = NULL, *access_log = "-";
     cfg->store_dir = NULL;
@@ -246,8 +238,9 @@ static int parse_args(int argc, char **argv, http_settings *cfg)
             cfg->store_dir = v;
         } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--listen", &bad))) {
             listen_text = v;
-        } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--threads", &bad))) {
-            if (!cmd_parse_u64(SUB, "--threads", v, 1, MAX_THREADS, &threads))
+        } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--max-connections", &bad))) {
+            if (!cmd_parse_u64(SUB, "--max-connections", v, 1, MAX_CONNECTIONS_LIMIT,
+                               &connections))
                 return CMD_USAGE;
         } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--scan-threads", &bad))) {
             if (!cmd_parse_u64(SUB, "--scan-threads", v, 1, HTTP_SCAN_MAX_LEADERS, &scan))
@@ -289,7 +282,7 @@ static int parse_args(int argc, char **argv, http_settings *cfg)
     if (!parse_listen(listen_text, cfg))
         return CMD_USAGE;
     snprintf(cfg->listen, sizeof cfg->listen, "%s", listen_text);
-    cfg->n_threads = (unsigned)threads;
+    cfg->max_connections = (unsigned)connections;
     cfg->n_scan_threads = (unsigned)scan;
     cfg->max_k = (size_t)max_k;
     cfg->poll_ms = (unsigned)poll_ms;
@@ -351,9 +344,9 @@ int cmd_serve_main(int argc, char **argv)
         http_live_stop(live);
         return cmd_report_error(&err);
     }
-    http_log("listening on http://%s (request threads: %u, top-k passes at once: %u, store: "
-             "%s, admin routes %s)", cfg.listen, cfg.n_threads, cfg.n_scan_threads,
-             cfg.store_dir, cfg.has_admin_token ? "on" : "off");
+    http_log("listening on http://%s (connections at most: %u, top-k passes at once: %u, "
+             "store: %s, admin routes %s)", cfg.listen, cfg.max_connections,
+             cfg.n_scan_threads, cfg.store_dir, cfg.has_admin_token ? "on" : "off");
 
     int sig = wait_for_stop(&stop_signals);
     http_log("%s: finishing open requests", sig == SIGINT ? "SIGINT" : "SIGTERM");

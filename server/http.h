@@ -41,8 +41,12 @@
 /** Bytes libmicrohttpd may use per connection (its default, stated here): the request line
  *  and headers must fit (libmicrohttpd refuses longer ones itself); bodies stream through. */
 #define HTTP_MEMORY_LIMIT (32u * 1024)
-/** Most connections open at once; more wait in the listen backlog. */
-#define HTTP_MAX_CONNECTIONS 1024
+/** Most connections open at once unless --max-connections says otherwise; more wait in the
+ *  listen backlog. */
+#define HTTP_DEFAULT_MAX_CONNECTIONS 1024
+/** Stack of each connection's thread. The handlers keep little on the stack (jansson's
+ *  parser recurses at most 2048 levels, a few hundred bytes each); the rest is headroom. */
+#define HTTP_THREAD_STACK_BYTES (1u << 20)
 /** How long a shutdown waits for open connections to finish. */
 #define HTTP_DRAIN_MS 5000
 /** Most queries, triples or nodes one POST may hold, unless --max-batch says otherwise. */
@@ -60,7 +64,7 @@ typedef struct http_settings {
     uint16_t port;                   /**< the port in addr, host order */
     bool is_ipv6;
     char listen[80];                 /**< the address as given, for messages */
-    unsigned n_threads;              /**< request threads */
+    unsigned max_connections;        /**< connections open at once, one thread each */
     size_t max_k;                    /**< largest k a request may ask for */
     unsigned poll_ms;                /**< how often the loader reads the store's head */
     unsigned n_scan_threads;         /**< top-k passes that may run at once (http_scan.c) */
@@ -400,6 +404,9 @@ void http_metrics_free(http_metrics *m);
 /** A request has started (it counts as in flight until http_metrics_end). Any thread. */
 void http_metrics_begin(http_metrics *m);
 
+/** Requests begun and not yet ended (the in-flight gauge). Any thread. */
+long http_metrics_in_flight(const http_metrics *m);
+
 /**
  * A request has ended. With @p is_answered, count it under @p route (http_reply.route),
  * @p is_wrong_method and @p status, taking @p seconds; else (the client went away before an
@@ -514,6 +521,12 @@ void http_daemon_stop(http_daemon *d, unsigned drain_ms);
 void http_scan_init(unsigned leaders);
 /** Free the leaders' workspace; call once no request runs. */
 void http_scan_fini(void);
+/**
+ * Let a new pass wait while requests counted in flight by @p m (NULL: none) still have work
+ * of their own to do, so that their queries join it (see gather() in http_scan.c). The
+ * daemon sets it at start and clears it before freeing @p m.
+ */
+void http_scan_watch(const http_metrics *m);
 
 /**
  * weft_topk_scan() (include/weft/topk.h) for a request thread, with the same result, but

@@ -225,6 +225,8 @@ static void count_failure(http_live *live, uint64_t version)
     atomic_fetch_add(&live->n_load_failures, 1);
 }
 
+static void refresh_history(http_live *live, bool is_forced);
+
 /* One poll: open the store if needed, read the head, follow a change. */
 static void poll_once(http_live *live)
 {
@@ -285,6 +287,7 @@ static void poll_once(http_live *live)
         return;
     }
     live->last_problem[0] = '\0';
+    refresh_history(live, false);   /* now, not just after the swap, when requests want the core */
     http_log("serving version %llu%s", (unsigned long long)version, parts_note(m));
     make_live(live, m, previous);
 }

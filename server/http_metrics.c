@@ -85,6 +85,11 @@ void http_metrics_begin(http_metrics *m)
     atomic_fetch_add_explicit(&m->in_flight, 1, memory_order_relaxed);
 }
 
+long http_metrics_in_flight(const http_metrics *m)
+{
+    return atomic_load_explicit(&m->in_flight, memory_order_relaxed);
+}
+
 static size_t status_index(unsigned status)
 {
     for (size_t i = 0; i < N_STATUS - 1; i++)

@@ -1,14 +1,19 @@
 /* Top-k scans shared between concurrent requests. A top-k query reads the whole embedding
- * matrix, so its cost is memory bandwidth; queries that arrive together are answered by one
- * pass (weft_topk_scan_batch reads each block of rows once for up to 64 queries) and get the
- * same lists a scan of their own would give. A request thread that finds no pass running
- * leads one over everything waiting on the same matrix; the others sleep until theirs is
- * done. At most `leaders` passes run at once (one per core by default). */
+ * matrix, so its cost is memory bandwidth (and, for many queries at once, arithmetic);
+ * queries that arrive together are answered by one pass (weft_topk_scan_batch reads each
+ * block of rows once for up to 64 queries) and get the same lists a scan of their own would
+ * give. A request thread that finds no pass running leads one over everything waiting on the
+ * same matrix (after letting the requests at work join, see gather()); the others sleep, each
+ * on its own condition variable, until their pass is done or, when a pass ends with requests
+ * still queued, the oldest of them is woken to lead the next. At most `leaders` passes run at
+ * once (one per core by default). */
 #include "http.h"
 
 #include <pthread.h>
+#include <sched.h>
 #include <stdlib.h>
 #include <string.h>
+#include <time.h>
 
 #include "weft/alloc.h"
 #include "weft/topk.h"
@@ -24,6 +29,7 @@ struct scan_req {
     float *score;
     size_t count;
     bool is_done, is_taken;
+    pthread_cond_t wake;            /* signalled when done, or when asked to lead */
     struct scan_req *next;
 };
 
@@ -39,11 +45,12 @@ struct leader_space {
 
 static struct {
     pthread_mutex_t lock;
-    pthread_cond_t done;
-    struct scan_req *head;
+    struct scan_req *head, **tail;  /* the queue, oldest first */
+    size_t n_taken;                 /* requests in a running pass */
+    const http_metrics *watched;    /* its in-flight gauge (http_scan_watch), or NULL */
     unsigned n_leaders, max_leaders;
     struct leader_space space[HTTP_SCAN_MAX_LEADERS];
-} sched = { PTHREAD_MUTEX_INITIALIZER, PTHREAD_COND_INITIALIZER, NULL, 0, 1, { { 0 } } };
+} sched = { PTHREAD_MUTEX_INITIALIZER, NULL, &sched.head, 0, NULL, 0, 1, { { 0 } } };
 
 void http_scan_init(unsigned leaders)
 {
@@ -53,6 +60,13 @@ void http_scan_init(unsigned leaders)
         leaders = HTTP_SCAN_MAX_LEADERS;
     pthread_mutex_lock(&sched.lock);
     sched.max_leaders = leaders;
+    pthread_mutex_unlock(&sched.lock);
+}
+
+void http_scan_watch(const http_metrics *m)
+{
+    pthread_mutex_lock(&sched.lock);
+    sched.watched = m;
     pthread_mutex_unlock(&sched.lock);
 }
 
@@ -130,50 +144,124 @@ static void run_batch(struct leader_space *sp, struct scan_req **batch, size_t n
     }
 }
 
+/* Queued requests (under the lock). */
+static size_t queue_length(void)
+{
+    size_t n = 0;
+    for (const struct scan_req *r = sched.head; r; r = r->next)
+        n++;
+    return n;
+}
+
+/* Longest a new leader waits for other requests to join its pass (gather()). */
+#define GATHER_MAX_NS 2000000L
+
+static double elapsed_ns(const struct timespec *since)
+{
+    struct timespec now;
+    clock_gettime(CLOCK_MONOTONIC, &now);
+    return (double)(now.tv_sec - since->tv_sec) * 1e9 + (double)(now.tv_nsec - since->tv_nsec);
+}
+
+/* Requests in flight that neither wait in the queue nor in a running pass: their threads
+ * have work of their own (reading the request, writing a response). Under the lock. */
+static long busy_elsewhere(size_t queued)
+{
+    if (!sched.watched)
+        return 0;
+    return http_metrics_in_flight(sched.watched) - (long)queued - (long)sched.n_taken;
+}
+
+/* Before a new leader takes its batch, let the requests that are being worked on reach the
+ * queue. On a busy core a leader would otherwise scan alone: when a pass ends, its requests'
+ * threads wake one by one to answer, the clients send their next requests, and the first
+ * thread to receive one finds the queue empty while the rest still wait for the core. So the
+ * leader yields the core to the threads ready to run, and goes on once a yield changes
+ * nothing (neither the queue nor the count of requests at work, see busy_elsewhere()), the
+ * batch is full, or GATHER_MAX_NS have passed. Alone on its core, a yield returns at once.
+ * Called and returns with the lock held, by a thread counted in n_leaders. */
+static void gather(void)
+{
+    struct timespec began;
+    clock_gettime(CLOCK_MONOTONIC, &began);
+    size_t queued = queue_length();
+    long busy = busy_elsewhere(queued);
+    while (queued < MAX_BATCH && elapsed_ns(&began) < GATHER_MAX_NS) {
+        pthread_mutex_unlock(&sched.lock);
+        sched_yield();
+        pthread_mutex_lock(&sched.lock);
+        size_t queued_now = queue_length();
+        long busy_now = busy_elsewhere(queued_now);
+        if (queued_now == queued && busy_now == busy)
+            break;
+        queued = queued_now;
+        busy = busy_now;
+    }
+}
+
+/* Take up to MAX_BATCH queued requests on the oldest one's matrix out of the queue, oldest
+ * first. Under the lock. */
+static size_t take_batch(struct scan_req **batch)
+{
+    struct scan_req **link = &sched.head, *first = sched.head;
+    size_t nb = 0;
+    while (*link && nb < MAX_BATCH) {
+        struct scan_req *r = *link;
+        if (r->e == first->e && r->n == first->n && r->d == first->d) {
+            r->is_taken = true;
+            batch[nb++] = r;
+            *link = r->next;
+        } else {
+            link = &r->next;
+        }
+    }
+    sched.tail = &sched.head;
+    while (*sched.tail)
+        sched.tail = &(*sched.tail)->next;
+    return nb;
+}
+
 size_t http_scan_topk(const float *e, size_t n, size_t d, const float *q, size_t k,
                       const weft_topk_exclude *ex, uint32_t *id, float *score)
 {
-    struct scan_req me = { e, q, n, d, k, ex, id, score, 0, false, false, NULL };
     if (k == 0)
         return 0;
+    struct scan_req me = { .e = e, .q = q, .n = n, .d = d, .k = k, .ex = ex, .id = id,
+                           .score = score };
+    pthread_cond_init(&me.wake, NULL);
     pthread_mutex_lock(&sched.lock);
-    me.next = sched.head;   /* order does not matter: every request waiting is in the pass */
-    sched.head = &me;
+    *sched.tail = &me;
+    sched.tail = &me.next;
     while (!me.is_done) {
-        if (sched.n_leaders >= sched.max_leaders || me.is_taken) {
-            pthread_cond_wait(&sched.done, &sched.lock);
+        if (me.is_taken || sched.n_leaders >= sched.max_leaders) {
+            pthread_cond_wait(&me.wake, &sched.lock);
             continue;
         }
-        /* Lead: take every waiting request on the first waiting request's matrix. */
+        /* Lead: the oldest waiting request's matrix, everything waiting on it. */
         struct leader_space *sp = NULL;
         for (size_t i = 0; !sp && i < HTTP_SCAN_MAX_LEADERS; i++)
             if (!sched.space[i].is_busy)
                 sp = &sched.space[i];
         sp->is_busy = true;
         sched.n_leaders++;
-        struct scan_req *batch[MAX_BATCH], **link = &sched.head, *first = NULL;
-        size_t nb = 0;
-        while (*link && nb < MAX_BATCH) {
-            struct scan_req *r = *link;
-            if (!first)
-                first = r;
-            if (r->e == first->e && r->n == first->n && r->d == first->d) {
-                r->is_taken = true;
-                batch[nb++] = r;
-                *link = r->next;   /* out of the queue */
-            } else {
-                link = &r->next;
-            }
-        }
+        gather();
+        struct scan_req *batch[MAX_BATCH];
+        size_t nb = take_batch(batch);
+        sched.n_taken += nb;
         pthread_mutex_unlock(&sched.lock);
         run_batch(sp, batch, nb);
         pthread_mutex_lock(&sched.lock);
-        for (size_t i = 0; i < nb; i++)
+        sched.n_taken -= nb;
+        for (size_t i = 0; i < nb; i++) {
             batch[i]->is_done = true;
+            pthread_cond_signal(&batch[i]->wake);
+        }
         sp->is_busy = false;
         sched.n_leaders--;
-        pthread_cond_broadcast(&sched.done);
+        if (sched.head)   /* hand the next pass to the oldest request still waiting */
+            pthread_cond_signal(&sched.head->wake);
     }
     pthread_mutex_unlock(&sched.lock);
+    pthread_cond_destroy(&me.wake);
     return me.count;
 }
