@@ -76,7 +76,7 @@ while [ $i -lt "$SWAPS" ]; do
     "$BUILD/weft" snapshots import "$OUT/service.snap" --store "$OUT/service-store" >/dev/null
     i=$((i + 1))
 done
-swap=$(/usr/bin/python3 - "$WPORT" "$BUILD/weft" "$OUT/service-store" "$SWAPS" "$WPID" <<'PY'
+swap=$(taskset -c 0 /usr/bin/python3 - "$WPORT" "$BUILD/weft" "$OUT/service-store" "$SWAPS" "$WPID" <<'PY'
 import http.client, json, statistics, subprocess, sys, time
 port, weft, store, swaps = int(sys.argv[1]), sys.argv[2], sys.argv[3], int(sys.argv[4])
 def minor_faults():   # the server's, from /proc/PID/stat (field 10)
