@@ -668,7 +668,7 @@ bool weft_snapshot_has_part(const weft_snapshot *snap, weft_snapshot_part part)
 /* Whether blob @p name belongs to model part @p part (the node table belongs to neither). */
 static bool blob_of_part(const char *name, weft_snapshot_part part)
 {
-    static const char *const link[] = { "relations.", "known_out.", "known_in." };
+    static const char *const link[] = { "relations.", "known_out.", "known_in.", "index." };
     if (part == WEFT_SNAPSHOT_LABELS)
         return !strncmp(name, "classes.", 8) || !strncmp(name, "label.", 6);
     if (!strcmp(name, "entity") || !strcmp(name, "relation"))

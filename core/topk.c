@@ -116,7 +116,7 @@ size_t weft_topk_select(const float *scores, size_t n, size_t k, uint32_t *id, f
     return weft_topk_finish(&t);
 }
 
-static bool is_excluded(const weft_topk_exclude *ex, uint32_t id)
+bool weft_topk_is_excluded(const weft_topk_exclude *ex, uint32_t id)
 {
     if (!ex)
         return false;
@@ -149,7 +149,7 @@ static float entry_bar(const weft_topk *t)
  * that would enter. */
 static void offer(weft_topk *t, const weft_topk_exclude *ex, uint32_t c, float s)
 {
-    if (weft_topk_would_enter(t, c, s) && !is_excluded(ex, c))
+    if (weft_topk_would_enter(t, c, s) && !weft_topk_is_excluded(ex, c))
         weft_topk_push(t, c, s);
 }
 

@@ -40,6 +40,9 @@ typedef struct weft_topk_exclude {
     uint32_t self;
 } weft_topk_exclude;
 
+/** True when @p ex (may be NULL) leaves out @p id: a binary search of the sorted list. */
+bool weft_topk_is_excluded(const weft_topk_exclude *ex, uint32_t id);
+
 /**
  * Best @p k rows of @p e (n, d, row-major) by inner product with @p q (d), leaving out
  * @p ex (may be NULL). The score of row i is exactly weft_kernel_dot(e + i d, q, d)

@@ -1,0 +1,653 @@
+/* Approximate top-k indexes with exact re-scoring (include/weft/index.h).
+ *
+ * The int8 scan: a query q is quantised too, q8 = round(q / sq) with sq = max |q| / 127,
+ * and row i's approximate score is scale_i sq (sum_j byte_ij q8_j - 128 sum_j q8_j), where
+ * byte = code + 128 (so the sum of byte x q8 is what VNNI's unsigned-by-signed product
+ * gives, and the offset costs one subtraction per row). Rows are scored in blocks, and a
+ * block's scores are compared with the candidate selection's bar before any is offered, as
+ * in core/topk.c. The candidates are then re-scored with weft_kernel_dot, so the scores
+ * returned, and the order, are those of the exact scan; a list differs from the exact one
+ * only where a row of the exact top k was not among the candidates. */
+#include "weft/index.h"
+
+#include <math.h>
+#include <stdatomic.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "internal.h"
+#include "weft/alloc.h"
+#include "weft/gemm.h"
+#include "weft/kernels.h"
+#include "weft/rng.h"
+
+#if defined(__x86_64__) && defined(__GNUC__)
+#define WEFT_INDEX_X86 1
+#include <immintrin.h>
+#endif
+
+/* Rows scored per block before the bar check: their int32 sums stay in L1. */
+enum { BLOCK_ROWS = 256 };
+
+/* Rows per block of the k-means assignment: the block's distances to every centroid
+ * (BLOCK x k floats) are one matrix product. */
+enum { ASSIGN_ROWS = 256 };
+
+static int8_t clamp_code(float v)
+{
+    long c = lrintf(v);
+    return (int8_t)(c > 127 ? 127 : c < -127 ? -127 : c);
+}
+
+static void encode_row(const float *x, size_t d, uint8_t *code, float *scale)
+{
+    float m = 0.0f;
+    bool is_finite = true;
+    for (size_t j = 0; j < d; j++) {
+        is_finite &= isfinite(x[j]) != 0;
+        float a = fabsf(x[j]);
+        m = a > m ? a : m;
+    }
+    if (!is_finite || m == 0.0f) {
+        memset(code, 128, d);
+        *scale = is_finite ? 0.0f : NAN;
+        return;
+    }
+    float s = m / 127.0f;
+    for (size_t j = 0; j < d; j++)
+        code[j] = (uint8_t)(clamp_code(x[j] / s) + 128);
+    *scale = s;
+}
+
+void weft_index_encode(const float *e, size_t n, size_t d, uint8_t *code, float *scale)
+{
+    for (size_t i = 0; i < n; i++)
+        encode_row(e + i * d, d, code + i * d, scale + i);
+}
+
+/* ---- the int8 scan ---- */
+
+/* A quantised query. */
+struct query8 {
+    int8_t *q8;          /* d, padded to a multiple of 64 with zeros */
+    float sq;            /* its scale */
+    int32_t offset;      /* 128 x sum of q8: subtracted from each byte x q8 sum */
+};
+
+static bool type_passes(const weft_index_filter *f, uint32_t id)
+{
+    return !f || !f->type_of || f->type_of[id] == f->type;
+}
+
+/* Offer row @p id with approximate score @p s to the candidates: the type first (one load),
+ * the exclusion search only for rows that would enter. */
+static void offer(weft_topk *t, const weft_index_filter *f, uint32_t id, float s)
+{
+    if (type_passes(f, id) && weft_topk_would_enter(t, id, s)
+        && !weft_topk_is_excluded(f ? f->ex : NULL, id))
+        weft_topk_push(t, id, s);
+}
+
+/* The lowest approximate score that may still enter @p t (candidates come in any id order,
+ * so a score equal to the worst kept one is let through to weft_topk_would_enter). */
+static float bar_of(const weft_topk *t)
+{
+    return t->n < t->k ? -INFINITY : t->score[0];
+}
+
+/* The approximate score of a row from its byte x q8 sum. */
+static float approx_score(int32_t sum, float scale, const struct query8 *q)
+{
+    return scale * q->sq * (float)((int64_t)sum - q->offset);
+}
+
+/* Score code rows [0, m) (their ids: row_id[i], or first + i) and offer those that reach the
+ * candidates' bar, portable: the sums of a block first (a loop the compiler vectorises per
+ * instruction set), then the bar check. */
+WEFT_CLONES
+static void block_sums(const uint8_t *code, size_t m, size_t d, const int8_t *q8, int32_t *out)
+{
+    for (size_t i = 0; i < m; i++) {
+        const uint8_t *row = code + i * d;
+        int32_t acc = 0;
+        for (size_t j = 0; j < d; j++)
+            acc += (int32_t)row[j] * (int32_t)q8[j];
+        out[i] = acc;
+    }
+}
+
+static void scan_portable(const uint8_t *code, const float *scale, size_t m, size_t d,
+                          const struct query8 *q, const uint32_t *row_id, size_t first,
+                          const weft_index_filter *f, weft_topk *t)
+{
+    int32_t sums[BLOCK_ROWS];
+    for (size_t b0 = 0; b0 < m; b0 += BLOCK_ROWS) {
+        size_t nb = m - b0 < BLOCK_ROWS ? m - b0 : BLOCK_ROWS;
+        block_sums(code + b0 * d, nb, d, q->q8, sums);
+        float bar = bar_of(t);
+        for (size_t i = 0; i < nb; i++) {
+            float s = approx_score(sums[i], scale[b0 + i], q);   /* NaN scale: never >= */
+            if (s >= bar) {
+                offer(t, f, row_id ? row_id[b0 + i] : (uint32_t)(first + b0 + i), s);
+                bar = bar_of(t);
+            }
+        }
+    }
+}
+
+#ifdef WEFT_INDEX_X86
+
+#define VNNI __attribute__((target("avx512f,avx512bw,avx512vnni")))
+
+/* The transposing reduction of core/topk.c in integers: 16 accumulators of 16 lanes in,
+ * lane L of the result holds the sum of accumulator (L >> 2) + 4 (L & 3). */
+VNNI static inline __m512i fold_i32(__m512i a, __m512i b, int step)
+{
+    __m512 fa = _mm512_castsi512_ps(a), fb = _mm512_castsi512_ps(b);
+    __m512 lo, hi;
+    switch (step) {
+    case 8:
+        lo = _mm512_shuffle_f32x4(fa, fb, _MM_SHUFFLE(1, 0, 1, 0));
+        hi = _mm512_shuffle_f32x4(fa, fb, _MM_SHUFFLE(3, 2, 3, 2));
+        break;
+    case 4:
+        lo = _mm512_shuffle_f32x4(fa, fb, _MM_SHUFFLE(2, 0, 2, 0));
+        hi = _mm512_shuffle_f32x4(fa, fb, _MM_SHUFFLE(3, 1, 3, 1));
+        break;
+    case 2:
+        lo = _mm512_shuffle_ps(fa, fb, _MM_SHUFFLE(1, 0, 1, 0));
+        hi = _mm512_shuffle_ps(fa, fb, _MM_SHUFFLE(3, 2, 3, 2));
+        break;
+    default:
+        lo = _mm512_shuffle_ps(fa, fb, _MM_SHUFFLE(2, 0, 2, 0));
+        hi = _mm512_shuffle_ps(fa, fb, _MM_SHUFFLE(3, 1, 3, 1));
+        break;
+    }
+    return _mm512_add_epi32(_mm512_castps_si512(lo), _mm512_castps_si512(hi));
+}
+
+VNNI static inline __m512i reduce16_i32(const __m512i acc[16])
+{
+    __m512i u[8], x[4];
+    for (int i = 0; i < 8; i++)
+        u[i] = fold_i32(acc[2 * i], acc[2 * i + 1], 8);
+    for (int i = 0; i < 4; i++)
+        x[i] = fold_i32(u[2 * i], u[2 * i + 1], 4);
+    return fold_i32(fold_i32(x[0], x[1], 2), fold_i32(x[2], x[3], 2), 1);
+}
+
+#define ACC_OF_LANE(L) (((L) >> 2) + 4 * ((L) & 3))
+
+/* scan_portable with VNNI, 16 rows per step (64 byte products per instruction), the
+ * approximate scores and the bar check in registers; the rows past the last full step go to
+ * scan_portable. The same sums, so the same candidates. */
+VNNI static void scan_vnni(const uint8_t *code, const float *scale, size_t m, size_t d,
+                           const struct query8 *q, const uint32_t *row_id, size_t first,
+                           const weft_index_filter *f, weft_topk *t)
+{
+    size_t d_full = d & ~(size_t)63;
+    __mmask64 tail = (d & 63) ? (((__mmask64)1 << (d & 63)) - 1) : 0;
+    const __m512i offset = _mm512_set1_epi32(q->offset);
+    const __m512 sq = _mm512_set1_ps(q->sq);
+    __m512 bar = _mm512_set1_ps(bar_of(t));
+    size_t i = 0;
+    for (; i + 16 <= m; i += 16) {
+        const uint8_t *rows = code + i * d;
+        __m512i acc[16];
+        for (int r = 0; r < 16; r++)
+            acc[r] = _mm512_setzero_si512();
+        for (size_t c = 0; c < d_full; c += 64) {
+            __m512i qv = _mm512_loadu_si512(q->q8 + c);
+#pragma GCC unroll 16
+            for (int r = 0; r < 16; r++)
+                acc[ACC_OF_LANE(r)] = _mm512_dpbusd_epi32(
+                    acc[ACC_OF_LANE(r)], _mm512_loadu_si512(rows + (size_t)r * d + c), qv);
+        }
+        if (tail) {
+            __m512i qv = _mm512_maskz_loadu_epi8(tail, q->q8 + d_full);
+#pragma GCC unroll 16
+            for (int r = 0; r < 16; r++)
+                acc[ACC_OF_LANE(r)] = _mm512_dpbusd_epi32(
+                    acc[ACC_OF_LANE(r)],
+                    _mm512_maskz_loadu_epi8(tail, rows + (size_t)r * d + d_full), qv);
+        }
+        __m512i sums = _mm512_sub_epi32(reduce16_i32(acc), offset);
+        __m512 s = _mm512_mul_ps(_mm512_cvtepi32_ps(sums),
+                                 _mm512_mul_ps(_mm512_loadu_ps(scale + i), sq));
+        __mmask16 pass = _mm512_cmp_ps_mask(s, bar, _CMP_GE_OQ);   /* NaN: false */
+        if (pass) {
+            float v[16];
+            _mm512_storeu_ps(v, s);
+            for (unsigned bits = pass; bits; bits &= bits - 1) {
+                unsigned lane = (unsigned)__builtin_ctz(bits);
+                offer(t, f, row_id ? row_id[i + lane] : (uint32_t)(first + i + lane), v[lane]);
+            }
+            bar = _mm512_set1_ps(bar_of(t));
+        }
+    }
+    if (i < m)
+        scan_portable(code + i * d, scale + i, m - i, d, q, row_id ? row_id + i : NULL,
+                      first + i, f, t);
+}
+
+/* Set by weft_index_allow_native(false): the one mutable global of this module. */
+static atomic_bool native_allowed = true;
+
+static bool use_vnni(void)
+{
+    return atomic_load(&native_allowed) && __builtin_cpu_supports("avx512vnni")
+           && __builtin_cpu_supports("avx512bw");
+}
+
+#else
+
+static bool use_vnni(void)
+{
+    return false;
+}
+
+#endif
+
+bool weft_index_is_native(void)
+{
+    return use_vnni();
+}
+
+void weft_index_allow_native(bool allow)
+{
+#ifdef WEFT_INDEX_X86
+    atomic_store(&native_allowed, allow);
+#else
+    (void)allow;
+#endif
+}
+
+static void scan_codes(const uint8_t *code, const float *scale, size_t m, size_t d,
+                       const struct query8 *q, const uint32_t *row_id, size_t first,
+                       const weft_index_filter *f, weft_topk *t)
+{
+#ifdef WEFT_INDEX_X86
+    if (use_vnni()) {
+        scan_vnni(code, scale, m, d, q, row_id, first, f, t);
+        return;
+    }
+#endif
+    scan_portable(code, scale, m, d, q, row_id, first, f, t);
+}
+
+/* Quantise @p q (d); false when out of memory. A non-finite query is left to the exact path
+ * (*is_finite false). */
+static bool query8_init(struct query8 *qq, const float *q, size_t d, bool *is_finite)
+{
+    memset(qq, 0, sizeof *qq);
+    float m = 0.0f;
+    *is_finite = true;
+    for (size_t j = 0; j < d; j++) {
+        *is_finite &= isfinite(q[j]) != 0;
+        float a = fabsf(q[j]);
+        m = a > m ? a : m;
+    }
+    size_t padded = (d + 63) & ~(size_t)63;
+    qq->q8 = calloc(padded ? padded : 64, 1);
+    if (!qq->q8)
+        return false;
+    if (!*is_finite || m == 0.0f)   /* zero codes: every approximate score is 0 */
+        return true;
+    qq->sq = m / 127.0f;
+    int32_t sum = 0;
+    for (size_t j = 0; j < d; j++) {
+        qq->q8[j] = clamp_code(q[j] / qq->sq);
+        sum += qq->q8[j];
+    }
+    qq->offset = 128 * sum;
+    return true;
+}
+
+/* Re-score the candidates in @p cand exactly into the best k, best first. */
+static size_t rescore(const weft_topk *cand, const float *e, size_t d, const float *q,
+                      size_t k, uint32_t *id, float *score)
+{
+    weft_topk t;
+    weft_topk_init(&t, k, id, score);
+    for (size_t i = 0; i < cand->n; i++) {
+        uint32_t r = cand->id[i];
+        weft_topk_push(&t, r, weft_kernel_dot(e + (size_t)r * d, q, d));
+    }
+    return weft_topk_finish(&t);
+}
+
+/* Every row that passes @p f, scored exactly: what a non-finite query gets. */
+static size_t exact_filtered(const float *e, size_t n, size_t d, const float *q, size_t k,
+                             const weft_index_filter *f, uint32_t *id, float *score)
+{
+    weft_topk t;
+    weft_topk_init(&t, k, id, score);
+    for (size_t r = 0; r < n; r++)
+        if (type_passes(f, (uint32_t)r) && !weft_topk_is_excluded(f ? f->ex : NULL, (uint32_t)r))
+            weft_topk_push(&t, (uint32_t)r, weft_kernel_dot(e + r * d, q, d));
+    return weft_topk_finish(&t);
+}
+
+/* The candidate buffers: k x oversample entries. */
+struct cands {
+    weft_topk t;
+    uint32_t *id;
+    float *score;
+};
+
+static weft_err cands_init(struct cands *c, size_t k, size_t oversample, weft_error *err)
+{
+    size_t kc = k * (oversample ? oversample : 1);
+    if (oversample && kc / oversample != k)
+        return weft_error_set(err, WEFT_ERR_INVALID, "k x oversample overflows");
+    c->id = weft_alloc_array(kc ? kc : 1, sizeof *c->id);
+    c->score = weft_alloc_array(kc ? kc : 1, sizeof *c->score);
+    if (!c->id || !c->score) {
+        free(c->id);
+        free(c->score);
+        return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory for %zu candidates", kc);
+    }
+    weft_topk_init(&c->t, kc, c->id, c->score);
+    return WEFT_OK;
+}
+
+static void cands_fini(struct cands *c)
+{
+    free(c->id);
+    free(c->score);
+}
+
+weft_err weft_index_int8_search(const weft_index_codes *c, const float *e, const float *q,
+                                size_t k, size_t oversample, const weft_index_filter *f,
+                                uint32_t *id, float *score, size_t *n_out, weft_error *err)
+{
+    *n_out = 0;
+    if (k == 0 || c->n == 0)
+        return WEFT_OK;
+    struct query8 qq;
+    bool is_finite;
+    if (!query8_init(&qq, q, c->d, &is_finite))
+        return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory for a query");
+    if (!is_finite) {
+        free(qq.q8);
+        *n_out = exact_filtered(e, c->n, c->d, q, k, f, id, score);
+        return WEFT_OK;
+    }
+    struct cands cand;
+    weft_err rc = cands_init(&cand, k, oversample, err);
+    if (rc == WEFT_OK) {
+        scan_codes(c->code, c->scale, c->n, c->d, &qq, NULL, 0, f, &cand.t);
+        *n_out = rescore(&cand.t, e, c->d, q, k, id, score);
+        cands_fini(&cand);
+    }
+    free(qq.q8);
+    return rc;
+}
+
+/* ---- k-means ---- */
+
+/* Nearest centroid of each row of @p x (m x d, m <= ASSIGN_ROWS) into @p assign; @p dist is
+ * m x k scratch, @p c2 the centroids' squared norms. */
+static void assign_block(const float *x, size_t m, size_t d, const float *centroids, size_t k,
+                         const float *c2, float *dist, uint32_t *assign, size_t n_threads)
+{
+    /* |x - c|^2 = |x|^2 - 2 x.c + |c|^2; |x|^2 is the same for every c of a row. */
+    weft_gemm(false, true, m, k, d, -2.0f, x, d, centroids, d, 0.0f, dist, k, n_threads);
+    for (size_t i = 0; i < m; i++) {
+        const float *row = dist + i * k;
+        size_t best = 0;
+        float best_d = row[0] + c2[0];
+        for (size_t c = 1; c < k; c++) {
+            float v = row[c] + c2[c];
+            if (v < best_d) {
+                best_d = v;
+                best = c;
+            }
+        }
+        assign[i] = (uint32_t)best;
+    }
+}
+
+static void squared_norms(const float *c, size_t k, size_t d, float *out)
+{
+    for (size_t i = 0; i < k; i++) {
+        double s = 0.0;
+        for (size_t j = 0; j < d; j++)
+            s += (double)c[i * d + j] * c[i * d + j];
+        out[i] = (float)s;
+    }
+}
+
+/* Assign every row of @p x to its nearest centroid. */
+static weft_err assign_all(const float *x, size_t n, size_t d, const float *centroids, size_t k,
+                           uint32_t *assign, size_t n_threads, weft_error *err)
+{
+    float *c2 = weft_alloc_array(k, sizeof *c2);
+    float *dist = weft_alloc_array(ASSIGN_ROWS, k * sizeof *dist);
+    if (!c2 || !dist) {
+        free(c2);
+        free(dist);
+        return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory assigning %zu rows", n);
+    }
+    squared_norms(centroids, k, d, c2);
+    for (size_t r0 = 0; r0 < n; r0 += ASSIGN_ROWS) {
+        size_t m = n - r0 < ASSIGN_ROWS ? n - r0 : ASSIGN_ROWS;
+        assign_block(x + r0 * d, m, d, centroids, k, c2, dist, assign + r0, n_threads);
+    }
+    free(c2);
+    free(dist);
+    return WEFT_OK;
+}
+
+static weft_err kmeans_threads(const float *x, size_t n, size_t d, size_t k, size_t iters,
+                               float *centroids, uint32_t *assign, size_t n_threads,
+                               weft_error *err)
+{
+    uint32_t *a = assign ? assign : weft_alloc_array(n ? n : 1, sizeof *a);
+    double *sum = weft_alloc_array(k, d * sizeof *sum);
+    size_t *count = weft_alloc_array(k, sizeof *count);
+    weft_err rc = WEFT_OK;
+    if (!a || !sum || !count) {
+        rc = weft_error_set(err, WEFT_ERR_NOMEM, "out of memory for k-means (%zu x %zu)", k, d);
+        goto done;
+    }
+    for (size_t it = 0; it < iters && rc == WEFT_OK; it++) {
+        if ((rc = assign_all(x, n, d, centroids, k, a, n_threads, err)) != WEFT_OK)
+            break;
+        memset(sum, 0, k * d * sizeof *sum);
+        memset(count, 0, k * sizeof *count);
+        for (size_t i = 0; i < n; i++) {
+            double *s = sum + (size_t)a[i] * d;
+            for (size_t j = 0; j < d; j++)
+                s[j] += x[i * d + j];
+            count[a[i]]++;
+        }
+        for (size_t c = 0; c < k; c++)
+            if (count[c])   /* an empty cluster keeps its centroid */
+                for (size_t j = 0; j < d; j++)
+                    centroids[c * d + j] = (float)(sum[c * d + j] / (double)count[c]);
+    }
+done:
+    if (a != assign)
+        free(a);
+    free(sum);
+    free(count);
+    return rc;
+}
+
+weft_err weft_index_kmeans(const float *x, size_t n, size_t d, size_t k, size_t iters,
+                           float *centroids, uint32_t *assign, weft_error *err)
+{
+    return kmeans_threads(x, n, d, k, iters, centroids, assign, 1, err);
+}
+
+/* ---- the clustered index ---- */
+
+void weft_index_ivf_fini(weft_index_ivf_arrays *a)
+{
+    free(a->centroid);
+    free(a->scale);
+    free(a->list_off);
+    free(a->row_id);
+    free(a->code);
+    memset(a, 0, sizeof *a);
+}
+
+/* Row @p x (d) augmented to d + 1 coordinates for inner-product search under @p max2, the
+ * largest squared row norm. */
+static void augment(const float *x, size_t d, double max2, float *out)
+{
+    double s = 0.0;
+    for (size_t j = 0; j < d; j++) {
+        out[j] = x[j];
+        s += (double)x[j] * x[j];
+    }
+    out[d] = (float)sqrt(max2 - s > 0.0 ? max2 - s : 0.0);
+}
+
+weft_err weft_index_ivf_build(const float *e, size_t n, size_t d, size_t n_lists, size_t iters,
+                              uint64_t seed, size_t n_threads, weft_index_ivf_arrays *out,
+                              weft_error *err)
+{
+    memset(out, 0, sizeof *out);
+    if (n == 0 || n >= UINT32_MAX)
+        return weft_error_set(err, WEFT_ERR_INVALID, "a clustered index needs 1 to 2^32 - 1 "
+                              "rows, not %zu", n);
+    size_t nl = n_lists ? n_lists : (size_t)(4.0 * sqrt((double)n));
+    nl = nl < 1 ? 1 : nl > n ? n : nl;
+    size_t da = d + 1, n_sample = 64 * nl < n ? 64 * nl : n;
+
+    double max2 = 0.0;
+    for (size_t i = 0; i < n; i++) {
+        double s = 0.0;
+        for (size_t j = 0; j < d; j++)
+            s += (double)e[i * d + j] * e[i * d + j];
+        max2 = s > max2 && isfinite(s) ? s : max2;
+    }
+    uint32_t *perm = weft_alloc_array(n, sizeof *perm);
+    float *xa = weft_alloc_array(n_sample, da * sizeof *xa);
+    float *ca = weft_alloc_array(nl, da * sizeof *ca);
+    float *block = weft_alloc_array(ASSIGN_ROWS, da * sizeof *block);
+    uint32_t *list_of = weft_alloc_array(n, sizeof *list_of);
+    weft_err rc = WEFT_OK;
+    if (!perm || !xa || !ca || !block || !list_of) {
+        rc = weft_error_set(err, WEFT_ERR_NOMEM, "out of memory building a clustered index");
+        goto done;
+    }
+    /* The sample: the first n_sample of a seeded shuffle; the first nl of it start k-means. */
+    weft_rng rng;
+    weft_rng_seed(&rng, seed);
+    for (size_t i = 0; i < n; i++)
+        perm[i] = (uint32_t)i;
+    for (size_t i = 0; i < n_sample; i++) {
+        size_t j = i + weft_rng_below(&rng, (uint32_t)(n - i));
+        uint32_t t = perm[i];
+        perm[i] = perm[j];
+        perm[j] = t;
+    }
+    for (size_t i = 0; i < n_sample; i++)
+        augment(e + (size_t)perm[i] * d, d, max2, xa + i * da);
+    memcpy(ca, xa, nl * da * sizeof *ca);
+    if ((rc = kmeans_threads(xa, n_sample, da, nl, iters, ca, NULL, n_threads, err)) != WEFT_OK)
+        goto done;
+    /* Every row to its nearest centroid, a block of augmented rows at a time. */
+    for (size_t r0 = 0; r0 < n && rc == WEFT_OK; r0 += ASSIGN_ROWS) {
+        size_t m = n - r0 < ASSIGN_ROWS ? n - r0 : ASSIGN_ROWS;
+        for (size_t i = 0; i < m; i++)
+            augment(e + (r0 + i) * d, d, max2, block + i * da);
+        rc = assign_all(block, m, da, ca, nl, list_of + r0, n_threads, err);
+    }
+    if (rc != WEFT_OK)
+        goto done;
+
+    out->centroid = weft_alloc_array(nl, da * sizeof *out->centroid);
+    out->list_off = weft_alloc_array(nl + 1, sizeof *out->list_off);
+    out->row_id = weft_alloc_array(n, sizeof *out->row_id);
+    out->code = weft_alloc_array(n, d ? d : 1);
+    out->scale = weft_alloc_array(n, sizeof *out->scale);
+    if (!out->centroid || !out->list_off || !out->row_id || !out->code
+        || !out->scale) {
+        rc = weft_error_set(err, WEFT_ERR_NOMEM, "out of memory building a clustered index");
+        goto done;
+    }
+    for (size_t l = 0; l < nl; l++) {
+        memcpy(out->centroid + l * da, ca + l * da, d * sizeof *ca);
+        double s = 0.0;
+        for (size_t j = 0; j < da; j++)
+            s += (double)ca[l * da + j] * ca[l * da + j];
+        out->centroid[l * da + d] = (float)(-0.5 * s);
+    }
+    /* Lists in order, rows in increasing id within each (a counting sort). */
+    memset(out->list_off, 0, (nl + 1) * sizeof *out->list_off);
+    for (size_t i = 0; i < n; i++)
+        out->list_off[list_of[i] + 1]++;
+    for (size_t l = 0; l < nl; l++)
+        out->list_off[l + 1] += out->list_off[l];
+    for (size_t i = 0; i < n; i++)
+        out->row_id[out->list_off[list_of[i]]++] = (uint32_t)i;
+    for (size_t l = nl; l > 0; l--)
+        out->list_off[l] = out->list_off[l - 1];
+    out->list_off[0] = 0;
+    for (size_t p = 0; p < n; p++)
+        encode_row(e + (size_t)out->row_id[p] * d, d, out->code + p * d, out->scale + p);
+    out->ivf = (weft_index_ivf){
+        .n = n, .d = d, .n_lists = nl, .centroid = out->centroid, .list_off = out->list_off, .row_id = out->row_id,
+        .codes = { .n = n, .d = d, .code = out->code, .scale = out->scale },
+    };
+done:
+    free(perm);
+    free(xa);
+    free(ca);
+    free(block);
+    free(list_of);
+    if (rc != WEFT_OK)
+        weft_index_ivf_fini(out);
+    return rc;
+}
+
+weft_err weft_index_ivf_search(const weft_index_ivf *ix, const float *e, const float *q,
+                               size_t k, size_t nprobe, size_t oversample,
+                               const weft_index_filter *f, uint32_t *id, float *score,
+                               size_t *n_out, weft_error *err)
+{
+    *n_out = 0;
+    if (k == 0 || ix->n == 0)
+        return WEFT_OK;
+    size_t d = ix->d, np = nprobe < 1 ? 1 : nprobe > ix->n_lists ? ix->n_lists : nprobe;
+    struct query8 qq;
+    bool is_finite;
+    if (!query8_init(&qq, q, d, &is_finite))
+        return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory for a query");
+    if (!is_finite) {
+        free(qq.q8);
+        *n_out = exact_filtered(e, ix->n, d, q, k, f, id, score);
+        return WEFT_OK;
+    }
+    float *qa = weft_alloc_array(d + 1, sizeof *qa);
+    float *best_s = weft_alloc_array(np, sizeof *best_s);
+    uint32_t *best = weft_alloc_array(np, sizeof *best);
+    struct cands cand = { 0 };
+    weft_err rc = WEFT_OK;
+    if (!qa || !best_s || !best) {
+        rc = weft_error_set(err, WEFT_ERR_NOMEM, "out of memory for a query");
+        goto done;
+    }
+    if ((rc = cands_init(&cand, k, oversample, err)) != WEFT_OK)
+        goto done;
+    memcpy(qa, q, d * sizeof *qa);
+    qa[d] = 1.0f;
+    size_t n_best = weft_topk_scan(ix->centroid, ix->n_lists, d + 1, qa, np, NULL, best, best_s);
+    for (size_t b = 0; b < n_best; b++) {
+        uint64_t o0 = ix->list_off[best[b]], o1 = ix->list_off[best[b] + 1];
+        scan_codes(ix->codes.code + o0 * d, ix->codes.scale + o0, (size_t)(o1 - o0), d, &qq,
+                   ix->row_id + o0, 0, f, &cand.t);
+    }
+    *n_out = rescore(&cand.t, e, d, q, k, id, score);
+done:
+    cands_fini(&cand);
+    free(qa);
+    free(best_s);
+    free(best);
+    free(qq.q8);
+    return rc;
+}

@@ -1,0 +1,129 @@
+/* weft: approximate top-k indexes over an embedding matrix, each followed by an exact
+ * re-scoring, so that every score returned is the exact one (weft_kernel_dot, as in
+ * include/weft/topk.h) and only the choice of candidates is approximate.
+ *
+ * Two indexes:
+ *   int8  every row as d signed 8-bit codes and one float scale (row = scale x codes), a
+ *         quarter of the float32 bytes; a query scans all codes, keeps the best
+ *         k x oversample rows by approximate score and re-scores those exactly.
+ *   ivf   the rows in partitions ("lists") found by k-means; a query scores the partitions'
+ *         centroids, scans the int8 codes of the best nprobe lists only, and re-scores the
+ *         best k x oversample exactly. For maximum inner product search, k-means runs on the
+ *         rows augmented with one coordinate sqrt(M^2 - |x|^2) (M the largest row norm), so
+ *         that the nearest centroid in that space is the one of the largest inner product
+ *         (Bachrach et al. 2014, "Speeding up the Xbox recommender system using a Euclidean
+ *         transformation for inner-product spaces").
+ * A query vector is anything scored by inner product with the rows: for DistMult and ComplEx
+ * it already folds in the relation and direction (weft_model_query), so one index serves
+ * them all. */
+#ifndef WEFT_INDEX_H
+#define WEFT_INDEX_H
+
+#include <stdbool.h>
+#include <stddef.h>
+#include <stdint.h>
+
+#include "weft/error.h"
+#include "weft/topk.h"
+
+/** Candidates a query keeps: neither excluded nor, with @p type_of, of another type. */
+typedef struct weft_index_filter {
+    const weft_topk_exclude *ex;    /**< may be NULL */
+    const uint32_t *type_of;        /**< (n) node types, or NULL: every type */
+    uint32_t type;                  /**< the type kept when type_of is set */
+} weft_index_filter;
+
+/** Codes of the rows: code[i][j] + 128 stored as a byte (offset binary), so that the byte
+ *  times a signed query byte is what AVX-512 VNNI multiplies. */
+typedef struct weft_index_codes {
+    size_t n, d;
+    const uint8_t *code;            /**< (n, d): round(x / scale) + 128, in [1, 255] */
+    const float *scale;             /**< (n): max |x_j| / 127, or 0 for a zero row */
+} weft_index_codes;
+
+/**
+ * Codes of @p e (n x d) into @p code (n x d bytes) and @p scale (n floats). A row with a
+ * non-finite value gets scale NaN and is never a candidate of the index paths (a broken
+ * model; /v1/health reports such rows).
+ */
+void weft_index_encode(const float *e, size_t n, size_t d, uint8_t *code, float *scale);
+
+/**
+ * The best @p k rows of @p e for query @p q through the int8 codes @p c of the same rows:
+ * the best k x @p oversample rows by approximate score that pass @p f, re-scored exactly.
+ * @param e   the float rows (n x d) for the exact scores
+ * @param f   may be NULL (every row)
+ * @param id, score  k entries each, best first, scores as weft_kernel_dot gives them
+ * @param n_out  entries written
+ * @return WEFT_OK or WEFT_ERR_NOMEM (candidate buffers of k x oversample entries)
+ * Threads: reentrant. Cost: one pass over n x d bytes; with AVX-512 VNNI 64 products per
+ * instruction.
+ */
+weft_err weft_index_int8_search(const weft_index_codes *c, const float *e, const float *q,
+                                size_t k, size_t oversample, const weft_index_filter *f,
+                                uint32_t *id, float *score, size_t *n_out, weft_error *err);
+
+/**
+ * Lloyd's k-means: @p iters rounds of "assign every row of @p x (n x d) to its nearest
+ * centroid (squared Euclidean distance, ties to the lower index), then move each centroid
+ * to the mean of its rows; a centroid without rows stays where it was" (the rounds of
+ * scipy.cluster.vq.kmeans2 with minit='matrix', missing='warn').
+ * @param centroids  (k x d) the starting centroids in, the final ones out
+ * @param assign     (n) the last assignment out, or NULL
+ * @return WEFT_OK or WEFT_ERR_NOMEM
+ */
+weft_err weft_index_kmeans(const float *x, size_t n, size_t d, size_t k, size_t iters,
+                           float *centroids, uint32_t *assign, weft_error *err);
+
+/** A clustered index: views into its arrays (a snapshot's blobs, or weft_index_ivf_build's). */
+typedef struct weft_index_ivf {
+    size_t n, d, n_lists;
+    /** (n_lists, d + 1): each centroid's first d coordinates, then -|augmented centroid|^2
+     *  / 2, so that its inner product with (q, 1) ranks the lists for query q */
+    const float *centroid;
+    const uint64_t *list_off;       /**< (n_lists + 1): list l is rows list_off[l] .. [l + 1] */
+    const uint32_t *row_id;         /**< (n): the row of e at each position of the lists */
+    weft_index_codes codes;         /**< (n, d): the codes in list order */
+} weft_index_ivf;
+
+/** What weft_index_ivf_build allocates; free with weft_index_ivf_fini. */
+typedef struct weft_index_ivf_arrays {
+    weft_index_ivf ivf;             /**< views into the arrays below */
+    float *centroid, *scale;
+    uint64_t *list_off;
+    uint32_t *row_id;
+    uint8_t *code;
+} weft_index_ivf_arrays;
+
+/**
+ * Build a clustered index of @p e (n x d) with @p n_lists lists (0: 4 sqrt(n), at least 1,
+ * at most n): k-means (@p iters rounds) on a sample of at most 64 rows per list drawn with
+ * @p seed, starting from distinct sample rows, on the augmented rows (see the top of this
+ * file); then every row goes to its nearest centroid.
+ * @return WEFT_OK, WEFT_ERR_INVALID (n == 0 or n >= 2^32), WEFT_ERR_NOMEM
+ */
+weft_err weft_index_ivf_build(const float *e, size_t n, size_t d, size_t n_lists, size_t iters,
+                              uint64_t seed, size_t n_threads, weft_index_ivf_arrays *out,
+                              weft_error *err);
+
+/** Free what weft_index_ivf_build allocated; a zeroed struct does nothing. */
+void weft_index_ivf_fini(weft_index_ivf_arrays *a);
+
+/**
+ * The best @p k rows of @p e for @p q through @p ix: the @p nprobe lists whose centroids
+ * score best with (q, 1) (an exact scan, weft_topk_scan), their codes scanned, the best k x @p oversample that
+ * pass @p f re-scored exactly. Same outputs and contract as weft_index_int8_search.
+ */
+weft_err weft_index_ivf_search(const weft_index_ivf *ix, const float *e, const float *q,
+                               size_t k, size_t nprobe, size_t oversample,
+                               const weft_index_filter *f, uint32_t *id, float *score,
+                               size_t *n_out, weft_error *err);
+
+/** True when the int8 scans use AVX-512 VNNI on this CPU (false: portable loops). */
+bool weft_index_is_native(void);
+
+/** Allow (true, the default) or forbid the VNNI kernel, process-wide; both give the same
+ *  integer sums. For tests and side-by-side measurements. Thread-safe. */
+void weft_index_allow_native(bool allow);
+
+#endif

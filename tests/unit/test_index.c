@@ -1,0 +1,369 @@
+/* Approximate top-k indexes (core/index.c): codes, the int8 and clustered searches against
+ * the exact scan (weft_topk_scan), their boundaries and filters. */
+#include <criterion/criterion.h>
+#include <math.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "weft/index.h"
+#include "weft/kernels.h"
+#include "weft/rng.h"
+#include "weft/topk.h"
+
+enum { K = 10 };
+
+static float gauss(weft_rng *r)
+{
+    double u = weft_rng_double(r), v = weft_rng_double(r);
+    return (float)(sqrt(-2.0 * log(u > 1e-300 ? u : 1e-300)) * cos(6.283185307179586 * v));
+}
+
+static float *random_rows(size_t n, size_t d, uint64_t seed)
+{
+    weft_rng r;
+    weft_rng_seed(&r, seed);
+    float *e = malloc(n * d * sizeof *e);
+    cr_assert_not_null(e);
+    for (size_t i = 0; i < n * d; i++)
+        e[i] = gauss(&r);
+    return e;
+}
+
+/* n rows around n_centres centres, norms spread over a factor of about 3, like trained
+ * embeddings. */
+static float *clustered_rows(size_t n, size_t d, size_t n_centres, uint64_t seed)
+{
+    weft_rng r;
+    weft_rng_seed(&r, seed);
+    float *c = malloc(n_centres * d * sizeof *c), *e = malloc(n * d * sizeof *e);
+    cr_assert(c && e);
+    for (size_t i = 0; i < n_centres * d; i++)
+        c[i] = gauss(&r);
+    for (size_t i = 0; i < n; i++) {
+        size_t a = weft_rng_below(&r, (uint32_t)n_centres);
+        float len = 0.5f + weft_rng_float(&r);
+        for (size_t j = 0; j < d; j++)
+            e[i * d + j] = len * (c[a * d + j] + 0.35f * gauss(&r));
+    }
+    free(c);
+    return e;
+}
+
+struct codes {
+    uint8_t *code;
+    float *scale;
+    weft_index_codes view;
+};
+
+static struct codes encode(const float *e, size_t n, size_t d)
+{
+    struct codes c;
+    c.code = malloc(n * d > 0 ? n * d : 1);
+    c.scale = malloc((n ? n : 1) * sizeof *c.scale);
+    cr_assert(c.code && c.scale);
+    weft_index_encode(e, n, d, c.code, c.scale);
+    c.view = (weft_index_codes){ .n = n, .d = d, .code = c.code, .scale = c.scale };
+    return c;
+}
+
+static void codes_free(struct codes *c)
+{
+    free(c->code);
+    free(c->scale);
+}
+
+/* Share of the exact top-k ids found in @p got. */
+static double recall(const uint32_t *want, size_t n_want, const uint32_t *got, size_t n_got)
+{
+    size_t hit = 0;
+    for (size_t i = 0; i < n_want; i++)
+        for (size_t j = 0; j < n_got; j++)
+            if (want[i] == got[j]) {
+                hit++;
+                break;
+            }
+    return n_want ? (double)hit / (double)n_want : 1.0;
+}
+
+Test(index, codes_reconstruct_within_half_a_step)
+{
+    enum { N = 50, D = 37 };
+    float *e = random_rows(N, D, 3);
+    e[5 * D + 2] = 0.0f;
+    memset(e + 7 * D, 0, D * sizeof *e);   /* a zero row */
+    struct codes c = encode(e, N, D);
+    for (size_t i = 0; i < N; i++) {
+        if (i == 7) {
+            cr_assert_eq(c.scale[i], 0.0f);
+            continue;
+        }
+        float m = 0.0f;
+        for (size_t j = 0; j < D; j++)
+            m = fmaxf(m, fabsf(e[i * D + j]));
+        cr_assert_float_eq(c.scale[i], m / 127.0f, 1e-9f);
+        for (size_t j = 0; j < D; j++) {
+            int code = (int)c.code[i * D + j] - 128;
+            cr_assert(code >= -127 && code <= 127);
+            cr_assert_leq(fabsf(code * c.scale[i] - e[i * D + j]), 0.5f * c.scale[i] * 1.0001f);
+        }
+    }
+    cr_assert_eq(c.code[5 * D + 2], 128);
+    codes_free(&c);
+    free(e);
+}
+
+Test(index, a_non_finite_row_is_never_a_candidate)
+{
+    enum { N = 40, D = 8 };
+    float *e = random_rows(N, D, 4);
+    e[3 * D + 1] = INFINITY;
+    e[9 * D] = NAN;
+    struct codes c = encode(e, N, D);
+    cr_assert(isnan(c.scale[3]) && isnan(c.scale[9]));
+    uint32_t id[N];
+    float score[N];
+    size_t n = 0;
+    weft_error err;
+    cr_assert_eq(weft_index_int8_search(&c.view, e, e, N, 1, NULL, id, score, &n, &err), WEFT_OK);
+    cr_assert_eq(n, N - 2);
+    for (size_t i = 0; i < n; i++)
+        cr_assert(id[i] != 3 && id[i] != 9);
+    codes_free(&c);
+    free(e);
+}
+
+/* With room for every row among the candidates, the int8 search is the exact scan. */
+Test(index, int8_with_every_row_a_candidate_is_the_exact_scan)
+{
+    static const size_t dims[] = { 1, 15, 63, 64, 65, 128, 200 };
+    for (size_t t = 0; t < sizeof dims / sizeof dims[0]; t++) {
+        size_t n = 333, d = dims[t];
+        float *e = random_rows(n, d, 10 + t), *q = random_rows(1, d, 99 + t);
+        struct codes c = encode(e, n, d);
+        uint32_t want[K], got[K];
+        float want_s[K], got_s[K];
+        size_t n_want = weft_topk_scan(e, n, d, q, K, NULL, want, want_s), n_got = 0;
+        weft_error err;
+        cr_assert_eq(weft_index_int8_search(&c.view, e, q, K, 34, NULL, got, got_s, &n_got,
+                                            &err), WEFT_OK);
+        cr_assert_eq(n_got, n_want, "d = %zu", d);
+        for (size_t i = 0; i < n_got; i++) {
+            cr_assert_eq(got[i], want[i], "d = %zu, rank %zu", d, i);
+            cr_assert_eq(got_s[i], want_s[i], "the exact score, bit for bit");
+        }
+        codes_free(&c);
+        free(e);
+        free(q);
+    }
+}
+
+/* The approximate scores rank like the exact ones: the int8 search at its usual oversampling
+ * finds the exact top 10 (common practice for int8 with re-scoring: recall@10 near 1). */
+Test(index, int8_recall_on_random_and_clustered_rows)
+{
+    enum { N = 20000, D = 64, Q = 50 };
+    for (int kind = 0; kind < 2; kind++) {
+        float *e = kind ? clustered_rows(N, D, 40, 5) : random_rows(N, D, 5);
+        float *q = kind ? clustered_rows(Q, D, 40, 6) : random_rows(Q, D, 6);
+        struct codes c = encode(e, N, D);
+        double sum = 0.0;
+        for (size_t j = 0; j < Q; j++) {
+            uint32_t want[K], got[K];
+            float ws[K], gs[K];
+            size_t nw = weft_topk_scan(e, N, D, q + j * D, K, NULL, want, ws), ng = 0;
+            weft_error err;
+            cr_assert_eq(weft_index_int8_search(&c.view, e, q + j * D, K, 4, NULL, got, gs, &ng,
+                                                &err), WEFT_OK);
+            sum += recall(want, nw, got, ng);
+        }
+        cr_assert_geq(sum / Q, 0.99, "%s rows: recall@10 %.3f", kind ? "clustered" : "random",
+                      sum / Q);
+        codes_free(&c);
+        free(e);
+        free(q);
+    }
+}
+
+Test(index, int8_filters_exclusions_and_types)
+{
+    enum { N = 500, D = 16 };
+    float *e = random_rows(N, D, 7), *q = random_rows(1, D, 8);
+    struct codes c = encode(e, N, D);
+    uint32_t *type_of = malloc(N * sizeof *type_of);
+    cr_assert_not_null(type_of);
+    for (uint32_t i = 0; i < N; i++)
+        type_of[i] = i % 3;
+    type_of[123] = 7;   /* a type with one node */
+    uint32_t sorted[N];
+    for (uint32_t i = 0; i < N; i++)
+        sorted[i] = i;
+    uint32_t id[K];
+    float score[K];
+    size_t n = 99;
+    weft_error err;
+
+    weft_topk_exclude all = { .sorted = sorted, .n_sorted = N };
+    weft_index_filter f = { .ex = &all };
+    cr_assert_eq(weft_index_int8_search(&c.view, e, q, K, 4, &f, id, score, &n, &err), WEFT_OK);
+    cr_assert_eq(n, 0, "every candidate left out: an empty list");
+
+    f = (weft_index_filter){ .type_of = type_of, .type = 7 };
+    cr_assert_eq(weft_index_int8_search(&c.view, e, q, K, 4, &f, id, score, &n, &err), WEFT_OK);
+    cr_assert_eq(n, 1);
+    cr_assert_eq(id[0], 123);
+    cr_assert_eq(score[0], weft_kernel_dot(e + 123 * D, q, D));
+
+    weft_topk_exclude some = { .sorted = sorted + 100, .n_sorted = 300, .has_self = true,
+                               .self = 5 };   /* 100 .. 399 and 5 */
+    f = (weft_index_filter){ .ex = &some, .type_of = type_of, .type = 1 };
+    cr_assert_eq(weft_index_int8_search(&c.view, e, q, K, 200, &f, id, score, &n, &err),
+                 WEFT_OK);
+    cr_assert_eq(n, K);
+    /* The reference: every kept row scored exactly. */
+    weft_topk t;
+    uint32_t want[K];
+    float ws[K];
+    weft_topk_init(&t, K, want, ws);
+    for (uint32_t r = 0; r < N; r++)
+        if (type_of[r] == 1 && r != 5 && (r < 100 || r >= 400))
+            weft_topk_push(&t, r, weft_kernel_dot(e + (size_t)r * D, q, D));
+    cr_assert_eq(weft_topk_finish(&t), K);
+    for (size_t i = 0; i < K; i++)
+        cr_assert_eq(id[i], want[i]);
+    free(type_of);
+    codes_free(&c);
+    free(e);
+    free(q);
+}
+
+Test(index, ivf_lists_partition_the_rows)
+{
+    enum { N = 3000, D = 24 };
+    float *e = clustered_rows(N, D, 12, 11);
+    weft_index_ivf_arrays a;
+    weft_error err;
+    cr_assert_eq(weft_index_ivf_build(e, N, D, 0, 8, 1, 1, &a, &err), WEFT_OK, "%s", err.msg);
+    const weft_index_ivf *ix = &a.ivf;
+    cr_assert_eq(ix->n_lists, (size_t)(4.0 * sqrt(N)), "4 sqrt(n) lists by default");
+    cr_assert_eq(ix->list_off[0], 0);
+    cr_assert_eq(ix->list_off[ix->n_lists], N);
+    char *seen = calloc(N, 1);
+    cr_assert_not_null(seen);
+    for (size_t l = 0; l < ix->n_lists; l++)
+        for (uint64_t p = ix->list_off[l]; p < ix->list_off[l + 1]; p++) {
+            cr_assert_lt(ix->row_id[p], N);
+            cr_assert_not(seen[ix->row_id[p]], "row %u in two lists", ix->row_id[p]);
+            seen[ix->row_id[p]] = 1;
+            if (p > ix->list_off[l])
+                cr_assert_gt(ix->row_id[p], ix->row_id[p - 1], "ids increase within a list");
+        }
+    free(seen);
+    weft_index_ivf_fini(&a);
+    free(e);
+}
+
+/* Scanning every list is the int8 search; few lists keep most of the exact top 10 on
+ * clustered rows. */
+Test(index, ivf_recall_and_every_list_is_the_int8_search)
+{
+    enum { N = 20000, D = 32, Q = 40 };
+    float *e = clustered_rows(N, D, 30, 12), *q = clustered_rows(Q, D, 30, 13);
+    weft_index_ivf_arrays a;
+    weft_error err;
+    cr_assert_eq(weft_index_ivf_build(e, N, D, 0, 10, 2, 1, &a, &err), WEFT_OK, "%s", err.msg);
+    struct codes c = encode(e, N, D);
+    double sum_few = 0.0;
+    for (size_t j = 0; j < Q; j++) {
+        const float *qj = q + j * D;
+        uint32_t want[K], all[K], few[K], i8[K];
+        float ws[K], as[K], fs[K], is[K];
+        size_t nw = weft_topk_scan(e, N, D, qj, K, NULL, want, ws), na = 0, nf = 0, ni = 0;
+        cr_assert_eq(weft_index_ivf_search(&a.ivf, e, qj, K, a.ivf.n_lists, 4, NULL, all, as,
+                                           &na, &err), WEFT_OK);
+        cr_assert_eq(weft_index_int8_search(&c.view, e, qj, K, 4, NULL, i8, is, &ni, &err),
+                     WEFT_OK);
+        cr_assert_eq(na, ni);
+        for (size_t i = 0; i < na; i++)
+            cr_assert(all[i] == i8[i] && as[i] == is[i], "query %zu rank %zu", j, i);
+        cr_assert_eq(weft_index_ivf_search(&a.ivf, e, qj, K, a.ivf.n_lists / 10, 4, NULL, few,
+                                           fs, &nf, &err), WEFT_OK);
+        sum_few += recall(want, nw, few, nf);
+    }
+    cr_assert_geq(sum_few / Q, 0.95, "recall@10 probing a tenth of the lists: %.3f", sum_few / Q);
+    codes_free(&c);
+    weft_index_ivf_fini(&a);
+    free(e);
+    free(q);
+}
+
+Test(index, ivf_boundaries)
+{
+    enum { N = 64, D = 8 };
+    /* Four distinct rows repeated: asked for 16 lists, most stay empty. */
+    float *base = random_rows(4, D, 21), *e = malloc(N * D * sizeof *e);
+    cr_assert_not_null(e);
+    for (size_t i = 0; i < N; i++)
+        memcpy(e + i * D, base + (i % 4) * D, D * sizeof *e);
+    weft_index_ivf_arrays a;
+    weft_error err;
+    cr_assert_eq(weft_index_ivf_build(e, N, D, 16, 5, 3, 1, &a, &err), WEFT_OK, "%s", err.msg);
+    size_t n_empty = 0;
+    for (size_t l = 0; l < a.ivf.n_lists; l++)
+        n_empty += a.ivf.list_off[l] == a.ivf.list_off[l + 1];
+    cr_assert_geq(n_empty, 1, "duplicate rows leave lists empty");
+    uint32_t id[N];
+    float score[N];
+    size_t n = 0;
+    /* k larger than one list: the one list probed gives what it has. */
+    cr_assert_eq(weft_index_ivf_search(&a.ivf, e, base, N, 1, 4, NULL, id, score, &n, &err),
+                 WEFT_OK);
+    cr_assert_eq(n, N / 4, "the best list holds the 16 copies of the query's row");
+    for (size_t i = 0; i < n; i++)
+        cr_assert_eq(id[i] % 4, 0);
+    /* k = 0, and one row. */
+    cr_assert_eq(weft_index_ivf_search(&a.ivf, e, base, 0, 1, 4, NULL, id, score, &n, &err),
+                 WEFT_OK);
+    cr_assert_eq(n, 0);
+    weft_index_ivf_fini(&a);
+    cr_assert_eq(weft_index_ivf_build(e, 1, D, 0, 5, 3, 1, &a, &err), WEFT_OK, "%s", err.msg);
+    cr_assert_eq(a.ivf.n_lists, 1);
+    cr_assert_eq(weft_index_ivf_search(&a.ivf, e, base, K, 3, 4, NULL, id, score, &n, &err),
+                 WEFT_OK);
+    cr_assert_eq(n, 1);
+    cr_assert_eq(id[0], 0);
+    weft_index_ivf_fini(&a);
+    cr_assert_eq(weft_index_ivf_build(e, 0, D, 0, 5, 3, 1, &a, &err), WEFT_ERR_INVALID);
+    free(base);
+    free(e);
+}
+
+/* The VNNI kernel and the portable loops sum the same integers: the same candidates, so the
+ * same lists even with no room to spare (oversample 1). */
+Test(index, native_and_portable_scans_agree)
+{
+    static const size_t dims[] = { 7, 64, 100, 128, 200 };
+    for (size_t t = 0; t < sizeof dims / sizeof dims[0]; t++) {
+        size_t n = 1000 + 7 * t, d = dims[t];
+        float *e = random_rows(n, d, 30 + t), *q = random_rows(3, d, 40 + t);
+        struct codes c = encode(e, n, d);
+        for (size_t j = 0; j < 3; j++) {
+            uint32_t a[K], b[K];
+            float as[K], bs[K];
+            size_t na = 0, nb = 0;
+            weft_error err;
+            weft_index_allow_native(true);
+            cr_assert_eq(weft_index_int8_search(&c.view, e, q + j * d, K, 1, NULL, a, as, &na,
+                                                &err), WEFT_OK);
+            weft_index_allow_native(false);
+            cr_assert_eq(weft_index_int8_search(&c.view, e, q + j * d, K, 1, NULL, b, bs, &nb,
+                                                &err), WEFT_OK);
+            weft_index_allow_native(true);
+            cr_assert_eq(na, nb);
+            for (size_t i = 0; i < na; i++)
+                cr_assert(a[i] == b[i] && as[i] == bs[i], "d = %zu query %zu rank %zu", d, j, i);
+        }
+        codes_free(&c);
+        free(e);
+        free(q);
+    }
+}
