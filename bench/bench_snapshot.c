@@ -2,8 +2,9 @@
  * ../shared/bench/make_emb.py writes them), so that weft serve and the reference service of
  * ../shared/bench/ref_service.py answer from the same numbers. Node i is named "i"; the
  * known links are a chain i -> i+1 (a snapshot needs a graph; each query then excludes at
- * most one known target besides itself).
- * usage: bench_snapshot EMB.npy STORE_DIR */
+ * most one known target besides itself). With INDEX (int8 or ivf), the snapshot carries that
+ * index with weft train's defaults (include/weft/link_index.h).
+ * usage: bench_snapshot EMB.npy STORE_DIR [INDEX] */
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -11,6 +12,7 @@
 #include <jansson.h>
 
 #include "weft/graph.h"
+#include "weft/link_index.h"
 #include "weft/snapshot.h"
 #include "weft/store.h"
 
@@ -53,8 +55,9 @@ static float *read_npy(const char *path, size_t *n, size_t *d)
 
 int main(int argc, char **argv)
 {
-    if (argc != 3) {
-        fprintf(stderr, "usage: bench_snapshot EMB.npy STORE_DIR\n");
+    weft_link_index_kind kind = WEFT_LINK_INDEX_EXACT;
+    if ((argc != 3 && argc != 4) || (argc == 4 && !weft_link_index_kind_parse(argv[3], &kind))) {
+        fprintf(stderr, "usage: bench_snapshot EMB.npy STORE_DIR [exact|int8|ivf]\n");
         return 2;
     }
     size_t n, d;
@@ -76,11 +79,18 @@ int main(int argc, char **argv)
     weft_store_writer *w;
     uint64_t version;
     json_t *manifest = json_pack("{s:{s:s}}", "model", "kind", "dot");
+    weft_link_index_settings settings = weft_link_index_defaults(kind);
+    settings.n_threads = 2;
+    weft_link_index index;
+    if (weft_link_index_build(&m, &settings, &index, &err))
+        die("index", &err);
     if (weft_store_open(argv[2], WEFT_STORE_CREATE, 0, &st, &err) ||
         weft_store_writer_open(st, &w, &version, &err) ||
         weft_snapshot_put_link(w, manifest, g, &m, true, &err) ||
+        weft_link_index_put(w, manifest, &index, &err) ||
         weft_store_writer_commit(w, manifest, true, NULL, &err))
         die("store", &err);
+    weft_link_index_fini(&index);
     printf("{\"version\": %llu, \"nodes\": %zu, \"dim\": %zu}\n", (unsigned long long)version, n,
            d);
     json_decref(manifest);

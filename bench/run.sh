@@ -3,7 +3,9 @@
 # Writes $BUILD/bench/report.md. Both sides run on one core (taskset -c 1) with one OpenBLAS
 # thread; OPENBLAS_CORETYPE and OPENBLAS_L2_SIZE are left as the machine sets them.
 # BENCH_ONLY=topk runs the top-k section alone (about a minute) and stops there; it needs
-# only $BUILD/libweft.a (make build/libweft.a).
+# only $BUILD/libweft.a (make build/libweft.a). BENCH_ONLY=index (bench/index.sh: the
+# approximate indexes, a few minutes) and BENCH_ONLY=service (bench/service.sh: the HTTP
+# service against the Flask reference, about 3 minutes) run the top-k section and that one.
 set -eu
 TOP=$(cd "$(dirname "$0")/.." && pwd)
 BUILD=${BUILD:-build}
@@ -108,6 +110,19 @@ rat() { awk -v a="$1" -v b="$2" 'BEGIN { if (b + 0 > 0 && a + 0 > 0) printf "%.2
     echo "Raw JSON lines: $OUT/raw.jsonl"
 } >>"$report"
 if [ "$BENCH_ONLY" = topk ]; then
+    cat "$report"
+    exit 0
+fi
+
+# ---- the indexes (bench/index.sh) and the service over HTTP (bench/service.sh) ----
+# Each appends its own section; BENCH_ONLY=index or BENCH_ONLY=service runs one alone.
+for part in index service; do
+    if [ -z "$BENCH_ONLY" ] || [ "$BENCH_ONLY" = "$part" ]; then
+        REPORT="$report" BUILD="$BUILD" sh "$TOP/bench/$part.sh" >/dev/null \
+            || echo "**bench/$part.sh failed**: see $OUT." >>"$report"
+    fi
+done
+if [ "$BENCH_ONLY" = index ] || [ "$BENCH_ONLY" = service ]; then
     cat "$report"
     exit 0
 fi
@@ -280,5 +295,13 @@ rm -rf "$OUT/store-bench"
     echo "Cold means out of this machine's page cache (the disk under a VM may cache too)."
     echo "Command: make bench (this section: bench_store DIR N 128 3)."
 } >>"$report"
+
+# ---- soak: SOAK_SECONDS (default 600) of mixed load with a promotion every 10 s ----
+# bench/soak.sh appends its own section (errors, resident memory, file descriptors and
+# threads at start, after warm-up, at the end, and the verdict); SOAK_SECONDS=0 skips it.
+if [ "${SOAK_SECONDS:-600}" != 0 ]; then
+    REPORT="$report" BUILD="$BUILD" SOAK_SECONDS="${SOAK_SECONDS:-600}" sh "$TOP/bench/soak.sh" \
+        >/dev/null || echo "**The soak failed**: see its section above, when written, and $OUT/soak/." >>"$report"
+fi
 
 cat "$report"

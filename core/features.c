@@ -3,6 +3,7 @@
 #include "weft/features.h"
 
 #include <errno.h>
+#include <float.h>
 #include <math.h>
 #include <stdlib.h>
 #include <string.h>
@@ -97,8 +98,10 @@ static weft_err read_line(const weft_io_reader *rd, const weft_io_record *rec,
             st->e[st->n++] = e;
         }
     }
-    /* Sort this line's entries by index and refuse repeats. */
-    qsort(st->e + first, st->n - first, sizeof *st->e, cmp_index);
+    /* Sort this line's entries by index and refuse repeats. A line without features may
+     * come before any entry, while st->e is still NULL: qsort must not see it. */
+    if (st->n - first > 1)
+        qsort(st->e + first, st->n - first, sizeof *st->e, cmp_index);
     for (size_t k = first; k < st->n; k++) {
         if (k > first && st->e[k].index == st->e[k - 1].index)
             return weft_io_fail(rd, rec->lineno, 2, "feature", err, "index %u appears twice",
@@ -147,7 +150,8 @@ weft_err weft_features_load(const char *path, const weft_names_view *nodes, bool
         rc = weft_error_set(err, WEFT_ERR_INVALID, "%s: no feature line", path);
         goto done;
     }
-    qsort(st.e, st.n, sizeof *st.e, cmp_node);
+    if (st.n > 1)   /* lines listing no feature leave st.e NULL */
+        qsort(st.e, st.n, sizeof *st.e, cmp_node);
     a.n_rows = nodes->n;
     a.n_cols = st.max_index ? st.max_index : 1;
     a.off = weft_calloc_array(nodes->n + 1, sizeof *a.off);
@@ -169,14 +173,23 @@ weft_err weft_features_load(const char *path, const weft_names_view *nodes, bool
             s.n_empty++;
         a.off[v + 1] += a.off[v];
     }
+    /* Values of both signs can sum to almost nothing (3e38, -3e38 and 1e-45 sum to 1e-45):
+     * a quotient past the float range would be infinite, so such a row is refused. */
     if (row_normalise)
         for (size_t v = 0; v < nodes->n; v++) {
             double sum = 0.0;
             for (uint64_t k = a.off[v]; k < a.off[v + 1]; k++)
                 sum += a.val[k];
-            if (sum != 0.0)
-                for (uint64_t k = a.off[v]; k < a.off[v + 1]; k++)
-                    a.val[k] = (float)(a.val[k] / sum);
+            for (uint64_t k = a.off[v]; sum != 0.0 && k < a.off[v + 1]; k++) {
+                double q = a.val[k] / sum;
+                if (!(fabs(q) <= FLT_MAX)) {
+                    rc = weft_error_set(err, WEFT_ERR_PARSE, "%s:%u: field 2 (feature): the "
+                                        "values sum to %g, too near 0 to divide the row by",
+                                        path, (unsigned)st.line_of[v], sum);
+                    goto done;
+                }
+                a.val[k] = (float)q;
+            }
         }
     *out = a;
     memset(&a, 0, sizeof a);

@@ -104,14 +104,16 @@ static weft_err check_columns(const weft_io_reader *rd, const weft_io_record *re
         if (rec->n_fields != 2 && rec->n_fields != 3)
             return weft_io_fail(rd, rec->lineno, 0, NULL, err,
                                 "expected 2 fields (source, target) or 3 (source, relation, "
-                                "target), found %zu", rec->n_fields);
+                                "target), found %zu%s", rec->n_fields,
+                                weft_io_fields_note(rd, rec));
         *n_cols = rec->n_fields;
         *first_line = rec->lineno;
         return WEFT_OK;
     }
     if (rec->n_fields != *n_cols)
         return weft_io_fail(rd, rec->lineno, 0, NULL, err, "expected %zu fields like line %zu, "
-                            "found %zu", *n_cols, *first_line, rec->n_fields);
+                            "found %zu%s", *n_cols, *first_line, rec->n_fields,
+                            weft_io_fields_note(rd, rec));
     return WEFT_OK;
 }
 

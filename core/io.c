@@ -225,17 +225,33 @@ bool weft_io_utf8_valid(const char *s, size_t len)
     return utf8_first_invalid((const unsigned char *)s, len) == len;
 }
 
-/* Byte positions in messages are 1-based, like lines and fields. */
+/* Byte positions in messages are 1-based, like lines and fields. A carriage return left
+ * inside a line (after the "\r\n" ending is taken off) means lines that end with "\r" alone:
+ * the whole file would read as one line, its names joined across line ends. */
 static weft_err check_line_bytes(const weft_io_reader *r, weft_error *err)
 {
     const char *nul = memchr(r->line, '\0', r->line_len);
+    const char *cr = memchr(r->line, '\r', r->line_len);
     size_t bad = utf8_first_invalid((const unsigned char *)r->line, r->line_len);
-    if (nul && (size_t)(nul - r->line) <= bad)
+    if (nul && (size_t)(nul - r->line) <= bad && (!cr || nul < cr))
         return weft_io_fail(r, r->lineno, 0, NULL, err, "NUL byte at byte %zu",
                             (size_t)(nul - r->line) + 1);
+    if (cr && (size_t)(cr - r->line) <= bad)
+        return weft_io_fail(r, r->lineno, 0, NULL, err, "carriage return at byte %zu: lines "
+                            "must end with \\n or \\r\\n", (size_t)(cr - r->line) + 1);
     if (bad < r->line_len)
         return weft_io_fail(r, r->lineno, 0, NULL, err, "invalid UTF-8 at byte %zu", bad + 1);
     return WEFT_OK;
+}
+
+/* A UTF-8 byte order mark (EF BB BF, as some spreadsheet programs write) opening the file is
+ * not text: left in place it would become part of the first name. */
+static void drop_bom(weft_io_reader *r)
+{
+    if (r->line_len >= 3 && !memcmp(r->line, "\xef\xbb\xbf", 3)) {
+        r->line_len -= 3;
+        memmove(r->line, r->line + 3, r->line_len + 1);
+    }
 }
 
 static bool is_skipped(const char *s, size_t len)
@@ -342,6 +358,8 @@ weft_err weft_io_next(weft_io_reader *r, weft_io_record *rec, bool *eof, weft_er
             return WEFT_OK;
         }
         r->lineno++;
+        if (r->lineno == 1)
+            drop_bom(r);
         if (r->line_len > 0 && r->line[r->line_len - 1] == '\r')
             r->line[--r->line_len] = '\0';
         /* Comments too must be clean text: a bad byte anywhere means a wrong encoding. */
@@ -378,6 +396,14 @@ weft_err weft_io_fail(const weft_io_reader *r, size_t lineno, size_t field, cons
                               field, reason);
     return weft_error_set(err, WEFT_ERR_PARSE, "%s:%zu: field %zu (%s): %s", r->path, lineno,
                           field, what, reason);
+}
+
+const char *weft_io_fields_note(const weft_io_reader *r, const weft_io_record *rec)
+{
+    if (r->format != WEFT_IO_TSV || rec->n_fields != 1 ||
+        !memchr(rec->field[0], ' ', rec->len[0]))
+        return "";
+    return " (fields are separated by tabs; this line has spaces and no tab)";
 }
 
 weft_err weft_io_check_name(const weft_io_reader *r, const weft_io_record *rec, size_t field,

@@ -30,7 +30,8 @@ static weft_err two_fields(const weft_io_reader *rd, const weft_io_record *rec, 
 {
     if (rec->n_fields != 2)
         return weft_io_fail(rd, rec->lineno, 0, NULL, err, "expected 2 fields (node, %s), "
-                            "found %zu", what, rec->n_fields);
+                            "found %zu%s", what, rec->n_fields,
+                            weft_io_fields_note(rd, rec));
     return weft_io_check_name(rd, rec, 2, what, err);
 }
 

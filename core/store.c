@@ -208,22 +208,35 @@ static weft_err apply_growth(weft_store *s, weft_error *err)
     return WEFT_OK;
 }
 
-/* Why writing the data file failed, with what the file system and process limits say. */
+/* Why writing the data file failed, with what the file system and process limits say.
+ * LMDB reports a short write as EIO (it does not write again to learn ENOSPC or EFBIG):
+ * with no free block left on the file system it was a full disk, with the data file grown
+ * to the file size limit it was that limit. */
 static weft_err disk_error(const weft_store *s, int rc, const char *what, weft_error *err)
 {
+    char room[64] = "", limit[64] = "", text[16];
+    struct statvfs vfs;
+    bool is_full = false, is_at_limit = false;
+    if (statvfs(s->dir, &vfs) == 0) {
+        snprintf(room, sizeof room, "; %s free there",
+                 weft_store_format_bytes((double)vfs.f_bavail * (double)vfs.f_frsize, text));
+        is_full = vfs.f_bavail == 0;
+    }
+    struct rlimit rl;
+    if (getrlimit(RLIMIT_FSIZE, &rl) == 0 && rl.rlim_cur != RLIM_INFINITY) {
+        snprintf(limit, sizeof limit, "; file size limit (ulimit -f) %s",
+                 weft_store_format_bytes((double)rl.rlim_cur, text));
+        char path[PATH_MAX];
+        struct stat st;
+        is_at_limit = (size_t)snprintf(path, sizeof path, "%s/data.mdb", s->dir) < sizeof path
+                      && stat(path, &st) == 0 && (rlim_t)st.st_size >= rl.rlim_cur;
+    }
     const char *why = rc == ENOSPC   ? "no space left on device"
                       : rc == EDQUOT ? "disk quota exceeded"
                       : rc == EFBIG  ? "file too large"
+                      : is_full      ? "no space left on device (a short write)"
+                      : is_at_limit  ? "file too large (a short write up to the file size limit)"
                                      : "input/output error (a short write: disk full?)";
-    char room[64] = "", limit[64] = "", text[16];
-    struct statvfs vfs;
-    if (statvfs(s->dir, &vfs) == 0)
-        snprintf(room, sizeof room, "; %s free there",
-                 weft_store_format_bytes((double)vfs.f_bavail * (double)vfs.f_frsize, text));
-    struct rlimit rl;
-    if (getrlimit(RLIMIT_FSIZE, &rl) == 0 && rl.rlim_cur != RLIM_INFINITY)
-        snprintf(limit, sizeof limit, "; file size limit (ulimit -f) %s",
-                 weft_store_format_bytes((double)rl.rlim_cur, text));
     return weft_error_set(err, WEFT_ERR_IO,
                           "%s: writing %s/data.mdb failed: %s%s%s; nothing was stored, the "
                           "store is as it was", what, s->dir, why, room, limit);

@@ -27,7 +27,7 @@ static weft_err read_line(weft_io_reader *rd, const weft_io_record *rec,
     weft_err rc;
     if (rec->n_fields != 2)
         return weft_io_fail(rd, rec->lineno, 0, NULL, err, "expected 2 fields (node, type), "
-                            "found %zu", rec->n_fields);
+                            "found %zu%s", rec->n_fields, weft_io_fields_note(rd, rec));
     if ((rc = weft_io_check_name(rd, rec, 2, "type", err)) != WEFT_OK ||
         (rc = weft_io_find_name(rd, rec, 1, "node", "node", nodes, &node, err)) != WEFT_OK ||
         (rc = weft_names_intern(&t->names, rec->field[1], rec->len[1], &type, NULL, err)) !=

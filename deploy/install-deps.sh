@@ -4,13 +4,16 @@
 #   deploy/install-deps.sh                  install what is missing (uses sudo when not root)
 #   deploy/install-deps.sh --check          exit 1 and list what is missing, install nothing
 #   deploy/install-deps.sh --bench [--check]  the same, plus what `make bench` compares against
+#   deploy/install-deps.sh --fuzz [--check]   the same, plus what `make fuzz` builds with
 set -eu
 
 with_bench=0
+with_fuzz=0
 check_only=0
 for arg in "$@"; do
     case "$arg" in
         --bench) with_bench=1 ;;
+        --fuzz) with_fuzz=1 ;;
         --check) check_only=1 ;;
         *) echo "install-deps: unknown option $arg" >&2; exit 2 ;;
     esac
@@ -29,6 +32,7 @@ libopenblas0-pthread
 zlib1g-dev
 nettle-dev
 curl
+openssl
 python3
 python3-numpy
 python3-scipy
@@ -38,7 +42,14 @@ python3-yaml
 openapi-specification
 prometheus
 wrk
+chromium
+fonts-dejavu-core
+nodejs
 "
+# The analyst page's browser test (tests/e2e/test_page.sh) drives chromium with playwright-core,
+# which npm installs from tests/browser/package-lock.json. A node installed from elsewhere that
+# brings its own npm (and conflicts with Debian's npm package) is kept as it is.
+command -v npm >/dev/null 2>&1 || PACKAGES="$PACKAGES npm"
 
 # Only for `make bench`: the reference programs of ../shared/bench (PyTorch) and load tools.
 BENCH_PACKAGES="
@@ -47,6 +58,14 @@ python3-flask
 util-linux
 "
 [ "$with_bench" -eq 1 ] && PACKAGES="$PACKAGES $BENCH_PACKAGES"
+
+# Only for `make fuzz`: clang with libFuzzer and its sanitizer runtimes (tests/fuzz). The
+# replay of the corpora in `make test` needs none of them.
+FUZZ_PACKAGES="
+clang
+libfuzzer-14-dev
+"
+[ "$with_fuzz" -eq 1 ] && PACKAGES="$PACKAGES $FUZZ_PACKAGES"
 
 missing=""
 for p in $PACKAGES; do

@@ -24,7 +24,17 @@ int cmd_train_main(int argc, char **argv);
 int cmd_serve_main(int argc, char **argv);
 int cmd_eval_main(int argc, char **argv);
 int cmd_worker_main(int argc, char **argv);
+
+/**
+ * Read and check the configuration file @p path as `weft worker` does before it starts
+ * (server/cmd_worker.c), then forget it: the first problem is printed on stderr as
+ * "weft: path:line: reason". For tests/fuzz/fuzz_worker_config.c.
+ * @return true when the file is a valid configuration
+ */
+bool cmd_worker_read_config(const char *path);
 int cmd_snapshots_main(int argc, char **argv);
+int cmd_demo_main(int argc, char **argv);
+int cmd_sync_main(int argc, char **argv);
 
 /** Print "weft: <err->msg>" on stderr; returns CMD_FAIL. */
 int cmd_report_error(const weft_error *err);
@@ -38,6 +48,12 @@ int cmd_usage_error(const char *sub, const char *fmt, ...) __attribute__((format
  */
 bool cmd_parse_u64(const char *sub, const char *flag, const char *text, uint64_t min,
                    uint64_t max, uint64_t *out);
+
+/**
+ * A duration: a number of seconds, or a number with s, m, h or d ("90", "5m", "1.5h", "7d"),
+ * from 0 to 1e9 units. @return true and *@p seconds; false (nothing printed) otherwise.
+ */
+bool cmd_parse_duration(const char *text, double *seconds);
 
 /** Parse @p text as a finite number in [min, max] for option @p flag (same contract). */
 bool cmd_parse_double(const char *sub, const char *flag, const char *text, double min,

@@ -102,3 +102,25 @@ void cmd_log(const char *who, const char *fmt, ...)
     cmd_vlog(who, fmt, ap);
     va_end(ap);
 }
+
+bool cmd_parse_duration(const char *text, double *seconds)
+{
+    char *end;
+    errno = 0;
+    double x = strtod(text, &end);
+    double unit = 1.0;
+    if (end == text || errno || !(x >= 0) || x > 1e9)
+        return false;
+    if (*end == 's')
+        end++;
+    else if (*end == 'm')
+        unit = 60, end++;
+    else if (*end == 'h')
+        unit = 3600, end++;
+    else if (*end == 'd')
+        unit = 86400, end++;
+    if (*end)
+        return false;
+    *seconds = x * unit;
+    return true;
+}

@@ -185,11 +185,14 @@ static void print_help(void)
            "plus the test edges; the baseline counts the known links that are not test edges.\n"
            "A snapshot evaluated on its own test file gives the figures weft train reported.\n\n"
            "options:\n"
-           "  --store DIR     snapshot store\n"
-           "  --test FILE     edges to evaluate on\n"
+           "  --store DIR     snapshot store (required)\n"
+           "  --test FILE     edges to evaluate on (required)\n"
            "  --version V     snapshot version (default: the live one)\n"
            "  --json          print one JSON object instead of tables\n"
-           "  --threads N     evaluation threads (default: the online CPUs)\n");
+           "  --threads N     evaluation threads, 1 to 256 (default: the online CPUs)\n"
+           "  --help          print this help\n\n"
+           "Exit status: 0 done, 1 failed (no live snapshot, a name not in it, I/O),\n"
+           "2 bad arguments.\n");
 }
 
 static int parse_opts(int argc, char **argv, struct eval_opts *o)

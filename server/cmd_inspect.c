@@ -14,7 +14,9 @@ static const char inspect_usage[] =
     "\n"
     "  --undirected  a-b also stands for b-a (b-a in the input counts as a duplicate)\n"
     "  --json        print one JSON object instead of a table\n"
-    "  --help        print this help\n";
+    "  --help        print this help\n"
+    "\n"
+    "Exit status: 0 done, 1 failed (an unreadable or malformed file), 2 bad arguments.\n";
 
 typedef struct inspect_opts {
     bool is_undirected;

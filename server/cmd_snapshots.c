@@ -4,6 +4,7 @@
 #include <stdio.h>
 #include <string.h>
 #include <sys/stat.h>
+#include <unistd.h>
 
 #include "cmd.h"
 #include "weft/store.h"
@@ -32,7 +33,9 @@ static const char usage_text[] =
     "  --json            print JSON instead of a table or text\n"
     "  --force           promote: promote a rejected version anyway (recorded as forced)\n"
     "  --reason TEXT     promote, rollback: why, kept in the version's history\n"
-    "  --keep N          prune: versions to keep besides live and previous\n"
+    "                    (default: none)\n"
+    "  --keep N          prune: versions to keep besides live and previous, 0 to 1000000\n"
+    "                    (required with prune)\n"
     "  --help            print this help\n"
     "\n"
     "Exit status: 0 done, 1 failed (verify: a problem was found), 2 bad arguments.\n";
@@ -649,6 +652,35 @@ static weft_err open_store(const struct snap_opts *o, weft_store **out, weft_err
     return weft_store_open(o->store, 0, 0, out, err);
 }
 
+/* What import found before it opened (and so created) the store, so that a failed import
+ * into a directory that held no store leaves none behind. */
+struct store_before {
+    bool had_dir, had_store;
+};
+
+static struct store_before look_before(const char *dir)
+{
+    char path[4096];
+    struct stat st;
+    struct store_before b = { stat(dir, &st) == 0, false };
+    snprintf(path, sizeof path, "%s/data.mdb", dir);
+    b.had_store = stat(path, &st) == 0;
+    return b;
+}
+
+static void undo_new_store(const char *dir, const struct store_before *b)
+{
+    char path[4096];
+    if (b->had_store)
+        return;
+    snprintf(path, sizeof path, "%s/data.mdb", dir);
+    unlink(path);
+    snprintf(path, sizeof path, "%s/lock.mdb", dir);
+    unlink(path);
+    if (!b->had_dir)
+        rmdir(dir);
+}
+
 int cmd_snapshots_main(int argc, char **argv)
 {
     struct snap_opts o;
@@ -663,6 +695,7 @@ int cmd_snapshots_main(int argc, char **argv)
     weft_error err;
     weft_error_clear(&err);
     weft_store *s = NULL;
+    struct store_before before = look_before(o.store);
     weft_err e = open_store(&o, &s, &err);
     if (e == WEFT_OK) {
         static weft_err (*const run[])(weft_store *, const struct snap_opts *, weft_error *) = {
@@ -675,6 +708,8 @@ int cmd_snapshots_main(int argc, char **argv)
             note_stale_readers(s, &o);
     }
     weft_store_close(s);
+    if (e != WEFT_OK && o.action == IMPORT)
+        undo_new_store(o.store, &before);
     if (e == WEFT_OK && fflush(stdout) != 0)
         e = weft_error_set(&err, WEFT_ERR_IO, "stdout: write failed");
     return e == WEFT_OK ? CMD_OK : cmd_report_error(&err);

@@ -27,6 +27,12 @@
 
 static void print_help(void)
 {
+    /* The defaults shown are those weft_train_link_defaults() gives (core/train_link.c):
+     * dot with the logistic loss, another kind with it, and the softmax loss. */
+    weft_train_link_config dot, lg, sm;
+    weft_train_link_defaults(&dot, WEFT_LINK_DOT, WEFT_LOSS_LOGISTIC, 1000);
+    weft_train_link_defaults(&lg, WEFT_LINK_DISTMULT, WEFT_LOSS_LOGISTIC, 1000);
+    weft_train_link_defaults(&sm, WEFT_LINK_DISTMULT, WEFT_LOSS_SOFTMAX, 1000);
     printf("usage: weft train --store DIR --edges FILE [--edges FILE...] [options]\n\n"
            "Reads edge files (TSV or CSV, 2 columns source,target or 3 source,relation,target,\n"
            "gzip allowed). Either holds out a seeded share of them for validation and testing\n"
@@ -38,56 +44,78 @@ static void print_help(void)
            "beside the popularity baseline; stores the model as the next snapshot version and\n"
            "makes it live.\n\n"
            "input:\n"
-           "  --store DIR        snapshot store (created if absent)\n"
-           "  --edges FILE       edge file; repeat for several (with --test: the training edges)\n"
+           "  --store DIR        snapshot store, created if absent (required)\n"
+           "  --edges FILE       edge file (required); repeat for several, at most %d (with\n"
+           "                     --test: the training edges)\n"
            "  --holdout [V,]T    shares held out for validation and testing (default %g,%g);\n"
            "                     one number T holds out T for testing and nothing for validation\n"
-           "  --valid FILE       validation edges (needs --test)\n"
-           "  --test FILE        test edges, instead of a holdout\n"
+           "  --valid FILE       validation edges; needs --test (default: none)\n"
+           "  --test FILE        test edges, instead of a holdout (default: none)\n"
            "  --undirected       each edge a-b also stands for b-a\n"
            "  --types FILE       node types, node<TAB>type (stored with the node table; the\n"
            "                     server can then limit candidates to one type). Not carried\n"
-           "                     over: a run without it stores no types\n\n"
-           "model and training (defaults depend on the model and the number of nodes; the\n"
-           "values used are printed and stored in the snapshot's manifest):\n"
+           "                     over: a run without it stores no types (default: none)\n\n",
+           MAX_EDGE_FILES, DEFAULT_FRAC_VALID, DEFAULT_FRAC_TEST);
+    printf("model and training (defaults depend on the model, the loss and the number of\n"
+           "nodes; the values used are printed and stored in the snapshot's manifest):\n"
            "  --model KIND       dot, distmult or complex (default: dot for one relation,\n"
-           "                     distmult for several)\n"
-           "  --loss L           logistic (negative sampling) or softmax (1-vs-all)\n"
-           "  --optimizer O      adagrad or adam\n"
-           "  --reg R            l2 or n3\n"
-           "  --reg-weight X     regularisation weight\n"
-           "  --lr X             learning rate\n"
-           "  --dim D            embedding size (complex: even)\n"
-           "  --epochs E         most passes over the training edges\n"
-           "  --negatives N      logistic loss: corruptions per positive\n"
-           "  --batch B          softmax loss: queries per step\n"
-           "  --init X           initial embeddings ~ N(0, X^2)\n"
+           "                     distmult for several); gcn and gcn-link: see below\n"
+           "  --loss L           logistic (negative sampling) or softmax (1-vs-all) (default:\n"
+           "                     softmax for distmult and complex up to 524288 nodes, where a\n"
+           "                     batch of 128 queries' scores fits in 256 MiB; else logistic)\n"
+           "  --optimizer O      adagrad or adam (default %s)\n"
+           "  --reg R            l2 or n3 (default: %s for dot with the logistic loss, else %s)\n"
+           "  --reg-weight X     regularisation weight (default: softmax %g; logistic: dot %g,\n"
+           "                     others %g)\n"
+           "  --lr X             learning rate (default: softmax %g, logistic %g)\n"
+           "  --dim D            embedding size, complex: even (default: dot %zu, others %zu)\n"
+           "  --epochs E         most passes over the training edges (default %zu)\n"
+           "  --negatives N      logistic loss: corruptions per positive (default: dot %zu,\n"
+           "                     others %zu)\n"
+           "  --batch B          softmax loss: queries per step (default %zu, fewer past 67108\n"
+           "                     nodes so that a batch's scores fit in 256 MiB); logistic loss:\n"
+           "                     positives per step (default: 1/100 of the training edges, 16\n"
+           "                     to 1000)\n"
+           "  --init X           initial embeddings ~ N(0, X^2) (default: softmax %g, logistic\n"
+           "                     %g)\n"
            "  --seed S           seed of the split, initialisation, sampling and the negatives of\n"
-           "                     AUC (default 1)\n"
-           "  --threads N        training and evaluation threads (default: the online CPUs);\n"
-           "                     1 with a fixed seed gives bit-identical snapshots\n"
-           "  --eval-every E     epochs between validation evaluations\n"
+           "                     AUC (default %llu)\n"
+           "  --threads N        training and evaluation threads, 1 to 256 (default: the online\n"
+           "                     CPUs); 1 with a fixed seed gives bit-identical snapshots\n"
+           "  --eval-every E     epochs between validation evaluations (default %zu)\n"
            "  --time-budget S    training time budget in seconds (validation excluded): no\n"
-           "                     epoch starts that would end past it\n"
-           "  --patience P       evaluations without a better validation MRR before stopping\n"
-           "                     (0: never stop early)\n\n"
-           "output:\n"
-           "  --report FILE      write the evaluation report as JSON\n"
+           "                     epoch starts that would end past it (default: none)\n"
+           "  --patience P       evaluations without a better validation MRR before stopping,\n"
+           "                     0: never stop early (default %zu; dot with the logistic loss:\n"
+           "                     %zu)\n\n",
+           weft_train_optim_name(lg.optim), weft_train_reg_name(dot.reg),
+           weft_train_reg_name(lg.reg), (double)sm.reg_weight, (double)dot.reg_weight,
+           (double)lg.reg_weight, (double)sm.lr, (double)lg.lr, dot.dim, lg.dim, lg.epochs,
+           dot.negatives, lg.negatives, sm.batch, (double)sm.init_scale, (double)lg.init_scale,
+           (unsigned long long)lg.seed, lg.eval_every, lg.patience, dot.patience);
+    printf("output:\n"
+           "  --report FILE      write the evaluation report as JSON (default: none)\n"
            "  --quiet            no per-epoch progress\n\n"
            "the gate: a new snapshot goes live only if it beats its baselines on test and its\n"
            "test MRR (links) or accuracy (labels) is at most a tolerance below the live one's;\n"
            "otherwise it is stored as rejected, with the reason, and weft exits with status 3.\n"
            "The model part a run does not train is carried over from the live snapshot when the\n"
            "node table is the same.\n"
-           "  --gate-tolerance X how far below the live key metric is still accepted (%g)\n"
+           "  --gate-tolerance X how far below the live key metric is still accepted, 0 to 1\n"
+           "                     (default %g)\n"
            "  --force            promote even when the gate refuses (recorded in the manifest)\n"
            "  --no-promote       store the snapshot as staged; the live one stays\n"
            "  --warm-start       link models: start from the live snapshot's embeddings for the\n"
            "                     nodes and relations it knows (by name); new ones start fresh.\n"
            "                     Needs the same model kind, dimension and loss, else a notice\n"
-           "                     and a fresh start\n\n",
-           DEFAULT_FRAC_VALID, DEFAULT_FRAC_TEST, CMD_TRAIN_GATE_TOLERANCE);
+           "                     and a fresh start\n"
+           "  --help             print this help\n\n",
+           CMD_TRAIN_GATE_TOLERANCE);
+    cmd_train_index_help();
+    printf("\n");
     cmd_train_gcn_help();
+    printf("\nExit status: 0 stored (live, or staged with --no-promote), 1 failed (bad input,\n"
+           "I/O, the store), 2 bad arguments, 3 stored as rejected: the gate refused it.\n");
 }
 
 /* "--holdout T" or "--holdout V,T". */
@@ -262,7 +290,8 @@ static int check_inputs(const struct train_opts *o)
         return cmd_usage_error(SUB, "--valid needs --test (or use --holdout V,T)");
     if (o->test && o->has_holdout)
         return cmd_usage_error(SUB, "--holdout and --test exclude each other");
-    return cmd_train_gcn_check(o);
+    int rc = cmd_train_index_check(o);
+    return rc != CMD_OK ? rc : cmd_train_gcn_check(o);
 }
 
 static int parse_opts(int argc, char **argv, struct train_opts *o)
@@ -271,6 +300,7 @@ static int parse_opts(int argc, char **argv, struct train_opts *o)
     o->frac_valid = DEFAULT_FRAC_VALID;
     o->frac_test = DEFAULT_FRAC_TEST;
     o->gate_tolerance = CMD_TRAIN_GATE_TOLERANCE;
+    o->index = weft_link_index_defaults(WEFT_LINK_INDEX_EXACT);
     for (int i = 1; i < argc; i++) {
         bool bad = false;
         const char *v;
@@ -308,6 +338,9 @@ static int parse_opts(int argc, char **argv, struct train_opts *o)
         } else if ((v = cmd_opt_value(SUB, argc, argv, &i, "--holdout", &bad))) {
             if (!parse_holdout(v, o))
                 return CMD_USAGE;
+        } else if (!bad && cmd_train_index_parse(argc, argv, &i, o, &rc)) {
+            if (rc != CMD_OK)
+                return rc;
         } else if (!bad && cmd_train_gcn_parse(argc, argv, &i, o, &rc)) {
             if (rc != CMD_OK)
                 return rc;
@@ -375,6 +408,7 @@ struct inputs {
     weft_split split;                 /* holdout: owns the arrays */
     weft_graph_part parts[3];         /* files: train, valid, test; own the arrays */
     weft_graph_part_overlap overlap[3];   /* [1] valid, [2] test against train */
+    size_t n_test_in_valid;           /* test edges that are validation edges too */
     bool is_files;
 };
 
@@ -411,6 +445,28 @@ static void warn_parts(const struct inputs *in)
             fprintf(stderr, "weft: warning: %zu %s edges have a relation that no training "
                     "edge has\n", o->n_unseen_relation, part_names[i]);
     }
+    /* The stopping epoch is chosen on the validation edges: a test edge among them is
+     * measured by the model picked for it. Kept and counted, like a leak. */
+    if (in->n_test_in_valid)
+        fprintf(stderr, "weft: warning: %zu test edges are also validation edges (early "
+                "stopping chose the model on them: they flatter it)\n", in->n_test_in_valid);
+}
+
+weft_err cmd_train_load_edges(const struct train_opts *o, weft_graph *g, weft_error *err)
+{
+    weft_err rc = WEFT_OK;
+    for (size_t i = 0; rc == WEFT_OK && i < o->n_edges; i++)
+        rc = weft_graph_load_edges(g, o->edges[i], err);
+    if (rc != WEFT_OK)
+        return rc;
+    if (g->n_edges == 0 && o->n_edges == 1)
+        return weft_error_set(err, WEFT_ERR_INVALID, "%s: empty graph: no edges, only blank "
+                              "lines and comments", o->edges[0]);
+    if (g->n_edges == 0)
+        return weft_error_set(err, WEFT_ERR_INVALID, "empty graph: no edges in the %zu --edges "
+                              "files (%s and the others hold only blank lines and comments)",
+                              o->n_edges, o->edges[0]);
+    return weft_graph_finalize(g, err);
 }
 
 /* --edges TRAIN [--valid FILE] --test FILE: one graph (names and filter over all three),
@@ -424,18 +480,29 @@ static weft_err load_files(const struct train_opts *o, struct inputs *in, weft_e
         rc = weft_graph_load_part(in->g, o->valid, &in->parts[1], err);
     if (rc == WEFT_OK)
         rc = weft_graph_load_part(in->g, o->test, &in->parts[2], err);
-    if (rc == WEFT_OK)
-        rc = weft_graph_finalize(in->g, err);
+    if (rc != WEFT_OK)
+        return rc;
+    /* A file without edges is a mistake, whichever part it plays (counted as read). */
+    if (in->parts[0].n_edges == 0)
+        return o->n_edges == 1 ? weft_error_set(err, WEFT_ERR_INVALID, "%s: no training edges",
+                                                o->edges[0])
+                               : weft_error_set(err, WEFT_ERR_INVALID,
+                                                "no training edges in the --edges files");
+    if (o->valid && in->parts[1].n_edges == 0)
+        return weft_error_set(err, WEFT_ERR_INVALID, "%s: no validation edges", o->valid);
+    if (in->parts[2].n_edges == 0)
+        return weft_error_set(err, WEFT_ERR_INVALID, "%s: no test edges", o->test);
+    rc = weft_graph_finalize(in->g, err);
     for (size_t i = 0; rc == WEFT_OK && i < 3; i++)
         rc = weft_graph_part_finalize(in->g, &in->parts[i], err);
     for (size_t i = 1; rc == WEFT_OK && i < 3; i++)
         rc = weft_graph_part_compare(in->g, &in->parts[0], &in->parts[i], &in->overlap[i], err);
+    weft_graph_part_overlap vt = { 0, 0, 0 };
+    if (rc == WEFT_OK && o->valid)
+        rc = weft_graph_part_compare(in->g, &in->parts[1], &in->parts[2], &vt, err);
     if (rc != WEFT_OK)
         return rc;
-    if (in->parts[0].n_edges == 0)
-        return weft_error_set(err, WEFT_ERR_INVALID, "no training edges in the --edges files");
-    if (in->parts[2].n_edges == 0)
-        return weft_error_set(err, WEFT_ERR_INVALID, "%s: no test edges", o->test);
+    in->n_test_in_valid = vt.n_shared;
     in->is_files = true;
     in->train = in->parts[0].edges;
     in->n_train = in->parts[0].n_edges;
@@ -472,11 +539,7 @@ static weft_err load_graph(const struct train_opts *o, struct inputs *in, weft_e
         return rc;
     if (o->test)
         return load_files(o, in, err);
-    for (size_t i = 0; rc == WEFT_OK && i < o->n_edges; i++)
-        rc = weft_graph_load_edges(in->g, o->edges[i], err);
-    if (rc == WEFT_OK)
-        rc = weft_graph_finalize(in->g, err);
-    return rc;
+    return cmd_train_load_edges(o, in->g, err);
 }
 
 json_t *cmd_train_fingerprints(const struct train_opts *o, weft_error *err)
@@ -744,6 +807,7 @@ struct link_put {
     const weft_graph *g;
     const weft_link_params *params;
     bool is_probability;
+    const weft_link_index *index;   /* its index (kind exact: none) */
     cmd_gcn_labels *labels;   /* --model X,gcn: the label model too; else NULL */
 };
 
@@ -752,6 +816,8 @@ static weft_err put_link(void *ctx, weft_store_writer *w, json_t *manifest, weft
     const struct link_put *lp = ctx;
     weft_link_model model = weft_link_params_model(lp->params);
     weft_err rc = weft_snapshot_put_link(w, manifest, lp->g, &model, lp->is_probability, err);
+    if (rc == WEFT_OK)
+        rc = weft_link_index_put(w, manifest, lp->index, err);
     if (rc == WEFT_OK && lp->labels)
         rc = cmd_train_gcn_labels_put(lp->labels, w, manifest, err);
     return rc;
@@ -953,6 +1019,7 @@ int cmd_train_main(int argc, char **argv)
     struct results res;
     memset(&res, 0, sizeof res);
     weft_link_params params = { 0 };
+    weft_link_index index = { 0 };
     weft_train_link_config cfg;
     json_t *manifest = NULL, *inputs = NULL;
     struct progress pr = { isatty(STDERR_FILENO), o.is_quiet, json_array(), false, 0.0, NAN };
@@ -1017,9 +1084,12 @@ int cmd_train_main(int argc, char **argv)
             goto done;
         }
     }
+    weft_link_model trained = weft_link_params_model(&params);
+    if ((rc = cmd_train_index_build(&o, &trained, manifest, &index, &err)) != WEFT_OK)
+        goto done;
     if (o.report && (rc = cmd_train_write_report(o.report, manifest, &err)) != WEFT_OK)
         goto done;
-    struct link_put lp = { in.g, &params, cfg.loss == WEFT_LOSS_LOGISTIC, labels };
+    struct link_put lp = { in.g, &params, cfg.loss == WEFT_LOSS_LOGISTIC, &index, labels };
     cmd_train_outcome outcome;
     if ((rc = cmd_train_store(&o, in.g, manifest, put_link, &lp, &outcome, &err)) != WEFT_OK)
         goto done;
@@ -1027,6 +1097,7 @@ int cmd_train_main(int argc, char **argv)
     if (labels)
         cmd_train_gcn_caution();
 done:
+    weft_link_index_fini(&index);
     json_decref(manifest);
     json_decref(inputs);
     json_decref(pr.curve);

@@ -9,6 +9,7 @@
 
 #include "cmd.h"
 #include "weft/graph.h"
+#include "weft/link_index.h"
 #include "weft/store.h"
 #include "weft/train_gcn.h"
 #include "weft/train_link.h"
@@ -82,6 +83,9 @@ struct train_opts {
     double gate_tolerance;
     unsigned given_gcn;           /* GIVEN_GCN_* */
     weft_train_gcn_config gset;   /* the values of the given GCN flags */
+    /* the link model's index (cmd_train_index.c) */
+    weft_link_index_settings index;
+    bool is_index_tuned;          /* an --index-* setting was given */
 };
 
 /**
@@ -89,6 +93,13 @@ struct train_opts {
  * A new reference; NULL on failure (then @p err says why, or nothing when out of memory).
  */
 json_t *cmd_train_fingerprints(const struct train_opts *o, weft_error *err);
+
+/**
+ * Read every --edges file of @p o into @p g and finalize it. A graph left without edges (its
+ * files hold only blank lines and comments) is refused naming the files.
+ * @return WEFT_OK, WEFT_ERR_INVALID (no edges), the codes of weft_graph_load_edges()
+ */
+weft_err cmd_train_load_edges(const struct train_opts *o, weft_graph *g, weft_error *err);
 
 /** "1h02m", "3m05s", "12s". */
 void cmd_train_format_duration(char *out, size_t cap, double s);
@@ -143,6 +154,25 @@ enum { CMD_REJECTED = 3 };
 /** Default --gate-tolerance: how far below the live key metric a new snapshot may fall
  *  (absolute; our choice: about the spread of test MRR or accuracy between seeds). */
 #define CMD_TRAIN_GATE_TOLERANCE 0.01
+
+/* ---- cmd_train_index.c ---- */
+
+/** Parse the --index flags; returns 1 when argv[*i] is one (*rc its verdict), else 0. */
+int cmd_train_index_parse(int argc, char **argv, int *i, struct train_opts *o, int *rc);
+
+/** Check the index flags against the task. @return CMD_OK or CMD_USAGE (printed). */
+int cmd_train_index_check(const struct train_opts *o);
+
+/** The usage text of the index flags. */
+void cmd_train_index_help(void);
+
+/**
+ * Build and measure the index o->index asks for over link model @p m (nothing for exact),
+ * print a line about it and add its record to @p manifest's "models"."link" as "index" (the
+ * gate reads it there). Free @p out with weft_link_index_fini().
+ */
+weft_err cmd_train_index_build(const struct train_opts *o, const weft_link_model *m,
+                               json_t *manifest, weft_link_index *out, weft_error *err);
 
 /* ---- cmd_train_gcn.c ---- */
 

@@ -34,27 +34,31 @@ void cmd_train_gcn_help(void)
            "GCN layers mix node embeddings, a dot or DistMult decoder scores links; --model\n"
            "KIND,gcn trains a link model and a GCN into one snapshot: the shared flags below\n"
            "then tune the link model, the GCN flags both GCNs, and --holdout the edges):\n"
-           "  --labels FILE      node<TAB>class; needed by gcn; unlabelled nodes are fine\n"
-           "  --split FILE       node<TAB>train|valid|test for the labelled nodes; without it\n"
-           "                     --holdout V,T holds out labelled nodes by class (default %g,%g)\n"
-           "  --features FILE    node<TAB>index[:value] ... (sparse); without it each node gets\n"
-           "                     a learned input embedding of --dim values\n"
+           "  --labels FILE      node<TAB>class (required with gcn and KIND,gcn); unlabelled\n"
+           "                     nodes are fine\n"
+           "  --split FILE       node<TAB>train|valid|test for the labelled nodes (default:\n"
+           "                     none: --holdout V,T holds out labelled nodes by class, default\n"
+           "                     %g,%g)\n"
+           "  --features FILE    node<TAB>index[:value] ... (sparse) (default: none: each node\n"
+           "                     gets a learned input embedding of --dim values)\n"
            "  --raw-features     do not divide each feature row by its sum\n"
            "  --layers N         mixing layers (default 2)\n"
-           "  --hidden N         width of the hidden layers (gcn 16, gcn-link 32)\n"
+           "  --hidden N         width of the hidden layers (default: gcn 16, gcn-link 32)\n"
            "  --activation A     relu, sigmoid or linear between layers (default relu)\n"
            "  --norm N           sym: D^-1/2 (A+I) D^-1/2 (default), row: D^-1 (A+I); a\n"
            "                     directed graph is symmetrised\n"
            "  --bias             add a bias to every layer\n"
-           "  --dropout X        share of each layer's input dropped in training (gcn 0.5)\n"
-           "  --weight-decay X   L2 weight on the first layer (gcn 5e-4)\n"
+           "  --dropout X        share of each layer's input dropped in training, 0 to 0.95\n"
+           "                     (default: gcn 0.5, gcn-link 0)\n"
+           "  --weight-decay X   L2 weight on the first layer (default: gcn 5e-4, gcn-link 0)\n"
            "  --decoder D        gcn-link: dot (default) or distmult\n"
-           "  --dim D            gcn: learned input width (64); gcn-link: output width (16)\n"
-           "  --negatives N      gcn-link: corruptions per training edge and epoch (5)\n"
+           "  --dim D            gcn: learned input width (default 64); gcn-link: output width\n"
+           "                     (default 16)\n"
+           "  --negatives N      gcn-link: corruptions per training edge and epoch (default 5)\n"
            "  --epochs, --lr, --seed, --threads as above (Adam lr 0.01; gcn 200 epochs,\n"
            "                     gcn-link 400)\n"
            "  --patience P       stop when the validation loss exceeds the mean of the last P\n"
-           "                     epochs' (gcn 10; gcn-link 0: never)\n",
+           "                     epochs' (default: gcn 10; gcn-link 0: never)\n",
            DEFAULT_LABEL_VALID, DEFAULT_LABEL_TEST);
 }
 
@@ -468,10 +472,8 @@ static weft_err load_graph(const struct train_opts *o, struct gcn_run *r, weft_e
 {
     r->owns_graph = true;
     weft_err rc = weft_graph_new(o->is_undirected ? WEFT_GRAPH_UNDIRECTED : 0, &r->g, err);
-    for (size_t i = 0; rc == WEFT_OK && i < o->n_edges; i++)
-        rc = weft_graph_load_edges(r->g, o->edges[i], err);
     if (rc == WEFT_OK)
-        rc = weft_graph_finalize(r->g, err);
+        rc = cmd_train_load_edges(o, r->g, err);
     if (rc != WEFT_OK)
         return rc;
     const weft_graph *g = r->g;
@@ -511,6 +513,9 @@ static weft_err load_node_data(const struct train_opts *o, struct gcn_run *r, we
         printf("; %zu labelled nodes not in the split are not used",
                r->labels.n_labelled - r->n_part[1] - r->n_part[2] - r->n_part[3]);
     printf("\n");
+    if (r->n_part[WEFT_LABEL_TEST] == 0 && o->split)
+        return weft_error_set(err, WEFT_ERR_INVALID, "%s: no labelled node is in test: "
+                              "nothing to measure the model on", o->split);
     if (r->n_part[WEFT_LABEL_TEST] == 0)
         return weft_error_set(err, WEFT_ERR_INVALID, "no labelled test node: nothing to "
                               "measure the model on (use --split or a larger --holdout)");

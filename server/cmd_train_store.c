@@ -61,11 +61,24 @@ static bool gate_part(const json_t *mine, const json_t *live, weft_snapshot_part
         snprintf(why, sizeof why, "%s %.4f is more than %g below the live snapshot's %.4f",
                  key_label[p], value, tolerance, live_value);
     }
+    /* A link model's index must find the exact top 10 often enough (include/weft/
+     * link_index.h). */
+    const json_t *index = json_object_get(mine, "index");
+    double recall = json_number_value(json_object_get(index, "recall_at_10"));
+    double floor = json_number_value(json_object_get(index, "recall_floor"));
+    if (is_ok && index && !(recall >= floor)) {
+        is_ok = false;
+        snprintf(why, sizeof why, "the %s index's recall@10 %.4f against the exact scan is "
+                 "below its floor %g", json_string_value(json_object_get(index, "kind")), recall,
+                 floor);
+    }
     json_t *c = json_pack("{s:s, s:s, s:f, s:b, s:b}", "part", part_names[p], "metric",
                           key_metric[p], "value", isnan(value) ? 0.0 : value,
                           "beats_baselines", beats, "passed", is_ok);
     if (c && !isnan(live_value))
         json_object_set_new(c, "live_value", json_real(live_value));
+    if (c && index)
+        json_object_set_new(c, "index_recall_at_10", json_real(recall));
     if (c && !is_ok)
         json_object_set_new(c, "reason", json_string(why));
     json_array_append_new(checks, c);

@@ -88,29 +88,6 @@ static char *trim(char *s)
     return s;
 }
 
-/* "90", "90s", "15m", "2h", "1d" -> seconds; false when malformed. */
-static bool parse_duration(const char *v, double *out)
-{
-    char *end;
-    errno = 0;
-    double x = strtod(v, &end);
-    double unit = 1.0;
-    if (end == v || errno || !(x >= 0) || x > 1e9)
-        return false;
-    if (*end == 's')
-        end++;
-    else if (*end == 'm')
-        unit = 60, end++;
-    else if (*end == 'h')
-        unit = 3600, end++;
-    else if (*end == 'd')
-        unit = 86400, end++;
-    if (*end)
-        return false;
-    *out = x * unit;
-    return true;
-}
-
 /* @p path taken from the directory of the configuration file @p conf when relative. */
 static char *resolve(const char *conf, const char *path)
 {
@@ -146,10 +123,10 @@ static const char *set_worker(struct worker_config *c, const char *conf, const c
         return (c->store = resolve(conf, v)) ? NULL : "out of memory";
     }
     if (!strcmp(k, "check_every"))
-        return parse_duration(v, &c->check_every) && c->check_every >= 1
+        return cmd_parse_duration(v, &c->check_every) && c->check_every >= 1
                    ? NULL : "check_every: a duration of at least 1s, like 60s, 5m, 1h";
     if (!strcmp(k, "retrain_every"))
-        return parse_duration(v, &c->retrain_every)
+        return cmd_parse_duration(v, &c->retrain_every)
                    ? NULL : "retrain_every: a duration like 12h or 1d, or 0";
     if (!strcmp(k, "gate_tolerance")) {
         char *end;
@@ -264,6 +241,14 @@ static bool load_config(const char *path, struct worker_config *c)
         fprintf(stderr, "weft: %s: [train] names no input file (edges = FILE)\n", path);
         ok = false;
     }
+    return ok;
+}
+
+bool cmd_worker_read_config(const char *path)
+{
+    struct worker_config c;
+    bool ok = load_config(path, &c);
+    config_fini(&c);
     return ok;
 }
 
@@ -471,8 +456,16 @@ static void print_help(void)
            "weft train with the [train] options (warm start, gate, promotion), then prunes to\n"
            "keep versions. Logs each step on stderr. SIGTERM or SIGINT stops it between steps\n"
            "(a training run in progress is finished first).\n\n"
-           "  --config FILE   the configuration (see deploy/worker.conf for every setting)\n"
-           "  --once          one check (and training if due), then exit\n");
+           "  --config FILE   the configuration (required; format in weft-worker.conf(5),\n"
+           "                  an example in deploy/worker.conf)\n"
+           "  --once          one check (and training if due), then exit\n"
+           "  --help          print this help\n\n"
+           "settings of the file and their defaults: store (required), check_every 60s,\n"
+           "retrain_every 0 (only when an input changes), keep 0 (keep all), gate_tolerance\n"
+           "0.01, warm_start yes; [train] holds weft train options (edges required).\n\n"
+           "Exit status: 0 stopped (SIGTERM, SIGINT, or after --once), 1 the file is unreadable\n"
+           "or invalid, or weft train refused the [train] options, 2 bad arguments. A failed\n"
+           "or refused training run is logged and the worker goes on.\n");
 }
 
 int cmd_worker_main(int argc, char **argv)

@@ -14,6 +14,8 @@
  *   http_nodes.c   GET /v1/nodes/{name}, GET /v1/nodes/{name}/similar
  *   http_snapshots.c  GET /v1/snapshots, POST /v1/snapshots/{version}/promote,
  *                  POST /v1/snapshots/rollback (the admin routes)
+ *   http_page.c    GET /, GET /assets/{file}: the analyst page (web/, compiled in)
+ *   http_map.c     GET /v1/map: the node embeddings projected to 2-D (PCA)
  */
 #ifndef WEFT_SERVER_HTTP_H
 #define WEFT_SERVER_HTTP_H
@@ -26,6 +28,7 @@
 #include <sys/socket.h>
 
 #include "weft/error.h"
+#include "weft/link_index.h"
 #include "weft/snapshot.h"
 #include "weft/topk.h"
 
@@ -78,7 +81,20 @@ typedef struct http_settings {
                                           file opened for appending, or -1 (off) */
     const char *inputs;              /**< --inputs: comma-separated edge files for the coverage
                                           check, borrowed from argv; NULL for the manifest's */
+    /* HTTPS (--tls-cert, --tls-key): the PEM texts are NULL for plain HTTP. cmd_serve.c reads
+     * them at start and owns them; http_daemon_start() hands them to libmicrohttpd, which
+     * parses them there (GnuTLS keeps its own copy) and keeps no pointer to them, so the
+     * caller wipes them once it returns. */
+    const char *tls_cert_path;       /**< --tls-cert, borrowed from argv; for messages */
+    const char *tls_key_path;        /**< --tls-key, borrowed from argv; for messages */
+    char *tls_cert_pem;              /**< the certificate chain, NUL-terminated PEM */
+    char *tls_key_pem;               /**< the private key, NUL-terminated PEM; never logged */
+    char *tls_key_password;          /**< --tls-key-password-file's password, or NULL */
 } http_settings;
+
+/** GnuTLS priorities of an HTTPS server: its default cipher suites, TLS 1.2 and 1.3 only
+ *  (libmicrohttpd's default, "NORMAL", still offers TLS 1.0 and 1.1). */
+#define HTTP_TLS_PRIORITIES "NORMAL:-VERS-ALL:+VERS-TLS1.3:+VERS-TLS1.2"
 
 /** Snapshot age from which /v1/health warns unless --max-age says otherwise: 7 days (our
  *  choice: a weekly retrain is the slowest schedule we expect). */
@@ -136,6 +152,7 @@ typedef struct http_model {
     uint64_t version;
     bool has_links;          /**< the snapshot has a link model, and links is filled */
     weft_link_view links;
+    weft_link_index_view index;   /**< the link model's index (kind exact: none) */
     bool has_labels;         /**< the snapshot has a label model, and labels is filled */
     weft_label_view labels;  /**< (a loaded model has at least one of the two) */
     bool has_types;          /**< the snapshot stores node types, and types is filled */
@@ -192,6 +209,18 @@ typedef struct http_live_counts {
 /** Copy the loader's counts into @p out. Any thread; never touches LMDB. */
 void http_live_get_counts(http_live *live, http_live_counts *out);
 
+/** The last promoted version the loader could not load, for /v1/health. */
+typedef struct http_live_failure {
+    uint64_t version;        /**< that version; 0: every version loaded since the start */
+    bool is_current;         /**< the store's live version is still that one, so the server
+                                  serves the version it had before (or none) */
+    double at;               /**< when it first failed, Unix seconds */
+    char message[160];       /**< why (weft_snapshot_open's message: blob, CRC, ...) */
+} http_live_failure;
+
+/** Copy the loader's last load failure into @p out. Any thread; never touches LMDB. */
+void http_live_get_failure(http_live *live, http_live_failure *out);
+
 /**
  * The edge files whose nodes /v1/health's coverage check looks up in the live node table
  * (weft serve --inputs): @p inputs is a comma-separated list (copied), NULL for the edge
@@ -243,6 +272,9 @@ typedef enum http_fault {
     HTTP_FAULT_BUSY          /**< 503 busy: the loader did not finish an action in time */
 } http_fault;
 
+/** Most extra headers one reply carries (http_reply.headers). */
+#define HTTP_REPLY_MAX_HEADERS 8
+
 /** A response being built by a handler. */
 typedef struct http_reply {
     unsigned status;
@@ -255,6 +287,10 @@ typedef struct http_reply {
     size_t route;            /**< set by the dispatcher: the routes[] row whose path matched
                                   (see http_route_info), HTTP_ROUTE_NONE when none did */
     bool is_wrong_method;    /**< the path matched, the method did not (405) */
+    const char *headers[HTTP_REPLY_MAX_HEADERS][2];  /**< more response headers, name and
+                                  value, static strings (the page's CSP and ETag); a
+                                  Cache-Control here replaces the default "no-store" */
+    size_t n_headers;
 } http_reply;
 
 /**
@@ -359,11 +395,21 @@ void http_links_explain(const http_request *rq, http_reply *out);
 void http_labels_predict(const http_request *rq, http_reply *out);
 void http_labels_predict_batch(const http_request *rq, http_reply *out);
 void http_labels_explain(const http_request *rq, http_reply *out);
+/** The caution every answer about labels carries (probabilistic, human review, the law). */
+extern const char http_labels_caution[];
 void http_nodes_get(const http_request *rq, http_reply *out);
 void http_nodes_similar(const http_request *rq, http_reply *out);
 void http_snapshots_get(const http_request *rq, http_reply *out);
 void http_snapshots_promote(const http_request *rq, http_reply *out);
 void http_snapshots_rollback(const http_request *rq, http_reply *out);
+void http_page_index(const http_request *rq, http_reply *out);
+void http_page_asset(const http_request *rq, http_reply *out);
+void http_map_get(const http_request *rq, http_reply *out);
+
+/** GET /v1/map: points when a request gives no max_points, and the most it may ask for
+ *  (a sample of the nodes when the snapshot has more; the PCA costs O(points x dim^2)). */
+#define HTTP_MAP_DEFAULT_POINTS 2000
+#define HTTP_MAP_MAX_POINTS 20000
 
 /* Name lookups of the link routes (http_links.c), shared with http_explain.c and
  * http_nodes.c. @p rq->model must have the link model (types: any model). */
@@ -500,8 +546,10 @@ typedef struct http_daemon http_daemon;
 /**
  * Start listening and serving with the settings in @p cfg and snapshots from @p live
  * (both borrowed until http_daemon_stop()).
- * @return WEFT_OK, WEFT_ERR_IO (cannot bind or start; libmicrohttpd logged why),
- *         WEFT_ERR_NOMEM
+ * With cfg->tls_cert_pem it serves HTTPS (HTTP_TLS_PRIORITIES); the PEM texts and the
+ * password are read during this call only, and may be wiped as soon as it returns.
+ * @return WEFT_OK, WEFT_ERR_IO (cannot bind or start, or GnuTLS refused the certificate or
+ *         key; libmicrohttpd logged why), WEFT_ERR_NOMEM
  */
 weft_err http_daemon_start(const http_settings *cfg, http_live *live, http_daemon **out,
                            weft_error *err);

@@ -18,7 +18,10 @@
  *   drift (labels)           share of nodes keeping their predicted class: warn below 0.8
  *                            (measured: the GCN on Cora, seeds 1 and 2, agree on 93.3%)
  *   input coverage           share of the input files' nodes in the node table: warn below
- *                            0.95, fail below 0.5 */
+ *                            0.95, fail below 0.5
+ *   snapshot load            listed once a promoted version failed to load (a CRC-32 or
+ *                            structure problem, a store error): warns while the store's live
+ *                            version is one the server refused and serves an older one */
 #include "http.h"
 
 #include <math.h>
@@ -704,10 +707,45 @@ static void check_coverage(const http_checks *k, http_check *out, size_t *n)
     }
 }
 
+/* Only after a load failure, so that a server that loaded every version lists the same
+ * checks as before. The value is the number of versions that failed since the start. */
+static void check_load(const http_request *rq, const http_live_failure *f, double now,
+                       http_check *out, size_t *n)
+{
+    if (!f->version)
+        return;
+    http_live_counts counts;
+    http_live_get_counts(rq->live, &counts);
+    double failures = (double)counts.load_failures;
+    char ago[32];
+    human_age(now - f->at, ago, sizeof ago);
+    if (f->is_current)
+        say(add(out, n, "snapshot_load", HTTP_CHECK_WARN, failures, NAN),
+            "the store's live version %llu failed to load %s ago and is not served (%.110s); "
+            "version %llu, verified when it was loaded, answers instead",
+            (unsigned long long)f->version, ago, f->message,
+            (unsigned long long)rq->model->version);
+    else
+        say(add(out, n, "snapshot_load", HTTP_CHECK_OK, failures, NAN),
+            "the store's live version %llu is served; version %llu failed to load %s ago "
+            "(%.110s)", (unsigned long long)rq->model->version, (unsigned long long)f->version,
+            ago, f->message);
+}
+
 size_t http_health_evaluate(const http_request *rq, double now, http_check *out)
 {
     size_t n = 0;
     const http_model *m = rq->model;
+    http_live_failure failure = { 0 };
+    if (rq->live)
+        http_live_get_failure(rq->live, &failure);
+    if (!m && failure.is_current) {
+        say(add(out, &n, "snapshot", HTTP_CHECK_FAIL, NAN, NAN),
+            "no snapshot is live: the store's live version %llu failed to load (%.110s); the "
+            "server picks up the next version promoted", (unsigned long long)failure.version,
+            failure.message);
+        return n;
+    }
     if (!m) {
         say(add(out, &n, "snapshot", HTTP_CHECK_FAIL, NAN, NAN),
             "no snapshot is live yet: run 'weft train --store DIR ...'; the server picks it "
@@ -715,6 +753,7 @@ size_t http_health_evaluate(const http_request *rq, double now, http_check *out)
         return n;
     }
     const json_t *manifest = weft_snapshot_manifest(m->snap);
+    check_load(rq, &failure, now, out, &n);
     check_age(rq, now, out, &n);
     check_gate(manifest, out, &n);
     if (m->has_links)

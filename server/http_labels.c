@@ -15,8 +15,8 @@
 #include "weft/model_gcn.h"
 #include "weft/names.h"
 
-/* Sent with every prediction and explanation. */
-static const char caution[] =
+/* Sent with every prediction and explanation (and GET /v1/map, which shows labels too). */
+const char http_labels_caution[] =
     "Probabilistic output of a model trained on past labels: it can be wrong and can encode "
     "bias in those labels. Have a person review it before acting on it; local law and "
     "data-protection rules decide what it may be used for.";
@@ -110,7 +110,7 @@ static json_t *body_finish(json_t *body, bool bad, const http_request *rq)
 {
     bad |= json_object_set_new(body, "snapshot",
                                json_integer((json_int_t)rq->model->version)) != 0;
-    bad |= json_object_set_new(body, "caution", json_string(caution)) != 0;
+    bad |= json_object_set_new(body, "caution", json_string(http_labels_caution)) != 0;
     if (bad) {
         json_decref(body);
         return NULL;

@@ -106,6 +106,7 @@ struct query_text {
     size_t source_len, target_len, relation_len, type_len;
     size_t k;                /* checked against the server's max_k */
     bool include_known;
+    bool is_exact;           /* exact=true: scan every row even when the snapshot has an index */
 };
 
 /* A query with its names resolved. */
@@ -117,6 +118,7 @@ struct predict_query {
     bool has_type;
     uint32_t type;           /* only candidates of this type */
     bool include_known;      /* keep links already in the known graph */
+    bool is_exact;           /* scan every row, not the snapshot's index */
 };
 
 /* Resolve @p t; on failure @p hint says what to do. */
@@ -128,6 +130,7 @@ static weft_err resolve(const http_request *rq, const struct query_text *t,
     memset(q, 0, sizeof *q);
     q->k = t->k;
     q->include_known = t->include_known;
+    q->is_exact = t->is_exact;
     if (t->direction && strcmp(t->direction, "in") != 0 && strcmp(t->direction, "out") != 0) {
         snprintf(hint, hint_size, "direction is out (the default with source) or in");
         return weft_error_set(err, WEFT_ERR_INVALID, "direction must be out or in, not '%s'",
@@ -254,6 +257,18 @@ static weft_err check_kind(const weft_link_view *v, weft_error *err)
     return WEFT_OK;
 }
 
+/* True when @p q is answered through the snapshot's index (include/weft/link_index.h). */
+static bool uses_index(const http_model *m, const struct predict_query *q)
+{
+    return m->index.kind != WEFT_LINK_INDEX_EXACT && !q->is_exact;
+}
+
+/* The path that answers @p q, as responses name it. */
+static const char *path_name(const http_model *m, const struct predict_query *q)
+{
+    return weft_link_index_kind_name(uses_index(m, q) ? m->index.kind : WEFT_LINK_INDEX_EXACT);
+}
+
 static weft_err rank(const http_model *m, const struct predict_query *q, struct workspace *w,
                      size_t *n, weft_error *err)
 {
@@ -262,6 +277,16 @@ static weft_err rank(const http_model *m, const struct predict_query *q, struct 
         return err->code;
     weft_model_query(&v->model, q->anchor, q->relation, q->is_in, w->query);
     weft_topk_exclude ex = exclusion(v, q);
+    if (uses_index(m, q)) {   /* the same filters; the index picks the candidates */
+        weft_index_filter f = { .ex = &ex, .type_of = q->has_type ? m->types.of_node : NULL,
+                                .type = q->type };
+        const weft_link_index_view *ix = &m->index;
+        if (ix->kind == WEFT_LINK_INDEX_IVF)
+            return weft_index_ivf_search(&ix->ivf, v->entity, w->query, q->k, ix->nprobe,
+                                         ix->oversample, &f, w->id, w->score, n, err);
+        return weft_index_int8_search(&ix->codes, v->entity, w->query, q->k, ix->oversample,
+                                      &f, w->id, w->score, n, err);
+    }
     if (q->has_type)
         *n = scan_typed(v, m->types.of_node, q->type, w->query, q->k, &ex, w->id, w->score);
     else
@@ -322,6 +347,7 @@ static json_t *answer_json(const http_model *m, const struct predict_query *q,
                                q->has_type ? name_json(&m->types.names, q->type)
                                            : json_null()) != 0;
     bad |= json_object_set_new(body, "include_known", json_boolean(q->include_known)) != 0;
+    bad |= json_object_set_new(body, "path", json_string(path_name(m, q))) != 0;
     bad |= json_object_set_new(body, "predictions", list) != 0;   /* takes list */
     if (bad) {
         json_decref(body);
@@ -368,6 +394,11 @@ static weft_err read_args(const http_request *rq, struct query_text *t, char *hi
         (rc = http_route_arg(rq, "direction", &t->direction, NULL, err)) ||
         (rc = http_route_arg(rq, "candidate_type", &t->type, &t->type_len, err)))
         return rc;
+    if ((rc = arg_bool(rq, "exact", false, &t->is_exact, err)) != WEFT_OK) {
+        snprintf(hint, hint_size, "exact=true scans every row even when the snapshot has an "
+                                  "index (default false)");
+        return rc;
+    }
     if ((rc = arg_bool(rq, "include_known", false, &t->include_known, err)) != WEFT_OK) {
         snprintf(hint, hint_size, "include_known=true keeps links already in the known graph "
                                   "among the candidates (default false)");
@@ -494,7 +525,7 @@ static void batch_reply(http_reply *out, const char *key, json_t *results)
 /* ---- POST /v1/links/predict ---- */
 
 static const char *const query_keys[] = { "source", "target", "relation", "k", "direction",
-                                          "candidate_type", "include_known", NULL };
+                                          "candidate_type", "include_known", "exact", NULL };
 
 /* Check the shape of queries[i] and read it into @p t (422 in @p out when wrong). */
 static bool read_item(const http_request *rq, const json_t *item, size_t i,
@@ -546,6 +577,13 @@ static bool read_item(const http_request *rq, const json_t *item, size_t i,
         return false;
     }
     t->include_known = json_is_true(known);
+    const json_t *exact = json_object_get(item, "exact");
+    if (exact && !json_is_null(exact) && !json_is_boolean(exact)) {
+        http_error_reply(out, HTTP_FAULT_UNPROCESSABLE, NULL, "%s.exact must be true or false",
+                         where);
+        return false;
+    }
+    t->is_exact = json_is_true(exact);
     return true;
 }
 
@@ -559,7 +597,15 @@ struct batch_item {
     json_t *answer;          /* the answer or the item's error; NULL while pending */
 };
 
-/* Answer the resolved queries without a type among @p items[0..n) in chunks of BATCH_CHUNK:
+/* True when @p q is ranked on its own (rank()) rather than in a chunk: limited to a type, or
+ * answered through the snapshot's index. */
+static bool is_alone(const http_model *m, const struct predict_query *q)
+{
+    return q->has_type || uses_index(m, q);
+}
+
+/* Answer the resolved queries ranked together (!is_alone) among @p items[0..n) in chunks of
+ * BATCH_CHUNK:
  * the query vectors of a chunk stacked into one matrix and scanned at once, each list then
  * cut to its own k (a list's first k entries are the list of k). */
 static weft_err scan_chunks(const http_model *m, struct batch_item *items, size_t n,
@@ -568,7 +614,7 @@ static weft_err scan_chunks(const http_model *m, struct batch_item *items, size_
     const weft_link_view *v = &m->links;
     size_t pending[BATCH_CHUNK], max_k = 1;
     for (size_t i = 0; i < n; i++)
-        if (!items[i].answer && !items[i].q.has_type && items[i].q.k > max_k)
+        if (!items[i].answer && !is_alone(m, &items[i].q) && items[i].q.k > max_k)
             max_k = items[i].q.k;
     float *q = weft_alloc_array(BATCH_CHUNK, v->dim * sizeof *q);
     uint32_t *id = weft_alloc_array(BATCH_CHUNK, max_k * sizeof *id);
@@ -582,7 +628,7 @@ static weft_err scan_chunks(const http_model *m, struct batch_item *items, size_
         size_t m_chunk = 0;
         for (; i < n && m_chunk < BATCH_CHUNK; i++) {
             const struct batch_item *it = &items[i];
-            if (it->answer || it->q.has_type)
+            if (it->answer || is_alone(m, &it->q))
                 continue;
             weft_model_query(&v->model, it->q.anchor, it->q.relation, it->q.is_in,
                              q + m_chunk * v->dim);
@@ -608,8 +654,9 @@ static weft_err scan_chunks(const http_model *m, struct batch_item *items, size_
 }
 
 /* Every query is checked for shape first; then each is resolved (a name the snapshot does
- * not know answers in its place), the queries limited to a type are ranked one by one and the
- * others together (scan_chunks); answers come back in the order asked. */
+ * not know answers in its place), the queries limited to a type or answered through the
+ * snapshot's index are ranked one by one and the others together (scan_chunks); answers
+ * come back in the order asked. */
 void http_links_predict_batch(const http_request *rq, http_reply *out)
 {
     const http_model *m = rq->model;
@@ -640,7 +687,7 @@ void http_links_predict_batch(const http_request *rq, http_reply *out)
             http_error_reply(out, HTTP_FAULT_INTERNAL, NULL, "out of memory");
             ok = false;
         }
-        if (!items[i].answer && items[i].q.has_type && items[i].q.k > max_typed_k)
+        if (!items[i].answer && is_alone(m, &items[i].q) && items[i].q.k > max_typed_k)
             max_typed_k = items[i].q.k;
     }
     struct workspace w = { 0 };

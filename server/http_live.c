@@ -57,6 +57,8 @@ struct http_live {
     /* For the model checks (http_health.c) and /metrics. */
     atomic_uint_fast64_t n_swaps, n_load_failures;
     uint64_t failed_version;    /* the last version counted as a load failure (loader only) */
+    http_live_failure failure;  /* the last load failure, for /v1/health (written by the
+                                   loader under lock, read by requests under lock) */
     bool wants_drift;           /* the current model was loaded with no model held: measure
                                    its drift from drift_previous at the next poll (loader) */
     uint64_t drift_previous;
@@ -114,6 +116,8 @@ static weft_err load(http_live *live, uint64_t version, http_model **out, weft_e
     if (rc == WEFT_OK || rc == WEFT_ERR_NOT_FOUND) {
         rc = weft_snapshot_label_view(m->snap, &m->labels, &part_err);
         m->has_labels = rc == WEFT_OK;
+        if (rc == WEFT_ERR_NOT_FOUND && m->has_links)   /* a link model alone */
+            rc = WEFT_OK;
     }
     if (rc == WEFT_OK) {   /* node types are optional; broken ones refuse the snapshot */
         weft_err trc = weft_snapshot_types_view(m->snap, &m->types, &part_err);
@@ -121,6 +125,8 @@ static weft_err load(http_live *live, uint64_t version, http_model **out, weft_e
         if (trc != WEFT_OK && trc != WEFT_ERR_NOT_FOUND)
             rc = trc;
     }
+    if (rc == WEFT_OK && m->has_links)   /* an index listed but broken refuses it too */
+        rc = weft_link_index_view_of(m->snap, &m->links, &m->index, &part_err);
     if (rc == WEFT_ERR_NOT_FOUND)
         rc = m->has_links ? WEFT_OK
                           : weft_error_set(&part_err, WEFT_ERR_CORRUPT,
@@ -216,13 +222,34 @@ static void make_live(http_live *live, http_model *m, uint64_t previous)
 }
 
 /* Count a version that failed to load, once per version (a transient failure is retried at
- * every poll). */
-static void count_failure(http_live *live, uint64_t version)
+ * every poll), and keep why for /v1/health. */
+static void count_failure(http_live *live, uint64_t version, const weft_error *err)
 {
+    pthread_mutex_lock(&live->lock);
+    http_live_failure *f = &live->failure;
+    if (f->version != version || !f->is_current)
+        f->at = unix_now();
+    f->version = version;
+    f->is_current = true;
+    const char *why = err->msg[0] ? err->msg : weft_err_name(err->code);
+    snprintf(f->message, sizeof f->message, "%.159s", why);
+    pthread_mutex_unlock(&live->lock);
     if (live->failed_version == version)
         return;
     live->failed_version = version;
     atomic_fetch_add(&live->n_load_failures, 1);
+}
+
+/* The store's live version is @p version again after a failure: a refused one (it stays the
+ * live version the server cannot serve), or one that is served or gone (the failure is past). */
+static void settle_failure(http_live *live, uint64_t version)
+{
+    bool is_current = version && version == live->refused && version == live->failure.version;
+    if (live->failure.is_current == is_current)   /* only the loader writes it */
+        return;
+    pthread_mutex_lock(&live->lock);
+    live->failure.is_current = is_current;
+    pthread_mutex_unlock(&live->lock);
 }
 
 static void refresh_history(http_live *live, bool is_forced);
@@ -260,6 +287,8 @@ static void poll_once(http_live *live)
         log_problem(live, "cannot read the store's head", &err);
         return;
     }
+    if (version == live->loaded || version == 0 || version == live->refused)
+        settle_failure(live, version);
     if (version == live->loaded)
         return;
     if (version == 0) {
@@ -271,7 +300,7 @@ static void poll_once(http_live *live)
         return;
     http_model *m = NULL;
     if (load(live, version, &m, &err) != WEFT_OK) {
-        count_failure(live, version);
+        count_failure(live, version, &err);
         /* A stored version never changes, so a checksum or structure failure is final;
          * anything else (LMDB trouble, memory) is tried again at the next poll. */
         if (err.code == WEFT_ERR_CORRUPT || err.code == WEFT_ERR_NOT_FOUND)
@@ -287,6 +316,7 @@ static void poll_once(http_live *live)
         return;
     }
     live->last_problem[0] = '\0';
+    settle_failure(live, version);
     refresh_history(live, false);   /* now, not just after the swap, when requests want the core */
     http_log("serving version %llu%s", (unsigned long long)version, parts_note(m));
     make_live(live, m, previous);
@@ -555,6 +585,13 @@ void http_live_admin(http_live *live, const http_admin_action *a, unsigned timeo
         rc = pthread_cond_timedwait(&live->done, &live->lock, &until);
     *out = job->result;
     job_unref(job);
+    pthread_mutex_unlock(&live->lock);
+}
+
+void http_live_get_failure(http_live *live, http_live_failure *out)
+{
+    pthread_mutex_lock(&live->lock);
+    *out = live->failure;
     pthread_mutex_unlock(&live->lock);
 }
 

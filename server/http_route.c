@@ -9,12 +9,14 @@
 
 static const char *const model_params[] = { NULL };
 static const char *const predict_params[] = { "source", "target", "relation", "k", "direction",
-                                              "candidate_type", "include_known", NULL };
+                                              "candidate_type", "include_known", "exact",
+                                              NULL };
 static const char *const link_explain_params[] = { "source", "relation", "target", "k", NULL };
 static const char *const label_predict_params[] = { "node", NULL };
 static const char *const label_explain_params[] = { "node", "k", NULL };
 static const char *const node_params[] = { "neighbours", NULL };
 static const char *const similar_params[] = { "k", "candidate_type", NULL };
+static const char *const map_params[] = { "max_points", NULL };
 
 /* Which part of a snapshot a route answers from. */
 enum route_needs { NEEDS_NOTHING, NEEDS_SNAPSHOT, NEEDS_LINKS, NEEDS_LABELS };
@@ -51,6 +53,9 @@ static const struct route {
     { "POST", "/v1/snapshots/rollback", http_snapshots_rollback, model_params, NEEDS_NOTHING },
     { "POST", "/v1/snapshots/{version}/promote", http_snapshots_promote, model_params,
       NEEDS_NOTHING },
+    { "GET", "/v1/map", http_map_get, map_params, NEEDS_SNAPSHOT },
+    { "GET", "/", http_page_index, NULL, NEEDS_NOTHING },
+    { "GET", "/assets/{file}", http_page_asset, NULL, NEEDS_NOTHING },
 };
 #define N_ROUTES (sizeof routes / sizeof routes[0])
 
@@ -76,31 +81,43 @@ static bool match_path(const char *pattern, const char *path, const char **arg, 
     return true;
 }
 
-static bool route_takes(const struct route *rt, const char *key)
+/* Position of @p key among the parameters @p rt takes: its params, then "pretty"; -1 when
+ * the route does not take it. */
+static int param_index(const struct route *rt, const char *key)
 {
-    if (!strcmp(key, "pretty"))
-        return true;
-    for (const char *const *p = rt->params; *p; p++)
+    int i = 0;
+    for (const char *const *p = rt->params; *p; p++, i++)
         if (!strcmp(*p, key))
-            return true;
-    return false;
+            return i;
+    return strcmp(key, "pretty") ? -1 : i;
 }
 
 struct param_scan {
     const struct route *rt;
     const char *unknown;    /* first parameter the route does not take */
+    const char *repeated;   /* first parameter given twice */
+    uint32_t seen;          /* bit i: parameter i (param_index) was given */
 };
 
+/* A parameter given twice is refused like a JSON key given twice: which of the two was
+ * meant cannot be known. */
 static enum MHD_Result scan_param(void *cls, enum MHD_ValueKind kind, const char *key,
                                   const char *value)
 {
     (void)kind;
     (void)value;
     struct param_scan *scan = cls;
-    if (route_takes(scan->rt, key))
-        return MHD_YES;
-    scan->unknown = key;
-    return MHD_NO;
+    int i = param_index(scan->rt, key);
+    if (i < 0) {
+        scan->unknown = key;
+        return MHD_NO;
+    }
+    if (scan->seen & (UINT32_C(1) << i)) {
+        scan->repeated = key;
+        return MHD_NO;
+    }
+    scan->seen |= UINT32_C(1) << i;
+    return MHD_YES;
 }
 
 /* "source, relation, k, pretty": the parameters of @p rt, for hints. */
@@ -129,15 +146,18 @@ static bool check_params(const http_request *rq, const struct route *rt, http_re
 {
     if (!rt->params)
         return true;
-    struct param_scan scan = { rt, NULL };
+    struct param_scan scan = { rt, NULL, NULL, 0 };
     MHD_get_connection_values(rq->conn, MHD_GET_ARGUMENT_KIND, scan_param, &scan);
-    if (!scan.unknown)
+    if (!scan.unknown && !scan.repeated)
         return true;
     char hint[200];
     char taken[160];
     list_params(rt, taken, sizeof taken);
     snprintf(hint, sizeof hint, "%s %s takes: %s", rt->method, rt->path, taken);
-    if (weft_io_utf8_valid(scan.unknown, strlen(scan.unknown)))
+    if (scan.repeated)
+        http_error_reply(out, HTTP_FAULT_BAD_REQUEST, "give each query parameter once",
+                         "query parameter '%s' is given more than once", scan.repeated);
+    else if (weft_io_utf8_valid(scan.unknown, strlen(scan.unknown)))
         http_error_reply(out, HTTP_FAULT_BAD_REQUEST, hint, "unknown query parameter '%s'",
                          scan.unknown);
     else
@@ -213,6 +233,13 @@ void http_route_dispatch(const http_request *rq, const char *method, const char 
     out->route = (size_t)(found - routes);
     http_request with_arg = *rq;
     char *arg_copy = NULL;
+    if (found_arg && !weft_io_utf8_valid(found_arg, found_arg_len)) {
+        http_error_reply(out, HTTP_FAULT_BAD_REQUEST,
+                         "percent-encode a name in the path as its UTF-8 bytes (%C3%A9, not "
+                         "%E9)", "the path segment after '%.*s' is not valid UTF-8",
+                         (int)(found_arg - path), path);
+        return;
+    }
     if (found_arg) {   /* a NUL-terminated copy: the path is too, but the tail follows it */
         arg_copy = malloc(found_arg_len + 1);
         if (!arg_copy) {
@@ -310,7 +337,10 @@ json_t *http_route_body(const http_request *rq, http_reply *out)
         return NULL;
     }
     json_error_t jerr;
-    json_t *body = json_loadb(rq->body, rq->body_len, JSON_REJECT_DUPLICATES, &jerr);
+    /* Any JSON value is read (JSON_DECODE_ANY), so that a bare string or number is called
+     * what it is, valid JSON that is not an object (422), rather than invalid JSON. */
+    json_t *body = json_loadb(rq->body, rq->body_len, JSON_REJECT_DUPLICATES | JSON_DECODE_ANY,
+                              &jerr);
     if (!body) {
         http_error_reply(out, HTTP_FAULT_BAD_REQUEST,
                          "the body must be one JSON object in UTF-8, each key once",

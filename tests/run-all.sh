@@ -1,6 +1,7 @@
 #!/bin/sh
-# make test: Criterion unit and reference tests, then the end-to-end tests.
-# The last line sums both: "N passed, N failed". Exit status 0 only when everything passed.
+# make test: Criterion unit and reference tests, then the end-to-end tests, then the replay
+# of every fuzz corpus and crash file (tests/fuzz/replay.sh, one check per target).
+# The last line sums all three: "N passed, N failed". Exit status 0 only when everything passed.
 set -u
 TOP=$(cd "$(dirname "$0")/.." && pwd)
 BUILD=${BUILD:-build}
@@ -24,7 +25,16 @@ e_fail=$(sed -n 's/^e2e: \([0-9]*\) passed, \([0-9]*\) failed$/\2/p' "$log" | ta
 [ -n "$e_pass" ] || e_pass=0
 [ -n "$e_fail" ] || e_fail=0
 [ "$e2e_rc" -ne 0 ] && [ "$e_fail" -eq 0 ] && e_fail=1
+BUILD="$BUILD" tests/fuzz/replay.sh >"$log" 2>&1
+replay_rc=$?
+cat "$log"
+r_pass=$(sed -n 's/^replay: \([0-9]*\) passed, \([0-9]*\) failed$/\1/p' "$log" | tail -n 1)
+r_fail=$(sed -n 's/^replay: \([0-9]*\) passed, \([0-9]*\) failed$/\2/p' "$log" | tail -n 1)
+[ -n "$r_pass" ] || r_pass=0
+[ -n "$r_fail" ] || r_fail=0
+[ "$replay_rc" -ne 0 ] && [ "$r_fail" -eq 0 ] && r_fail=1
 rm -f "$log"
-echo "unit: $u_pass passed, $u_fail failed; e2e: $e_pass passed, $e_fail failed"
-echo "$((u_pass + e_pass)) passed, $((u_fail + e_fail)) failed"
-[ $((u_fail + e_fail)) -eq 0 ]
+echo "unit: $u_pass passed, $u_fail failed; e2e: $e_pass passed, $e_fail failed;" \
+    "fuzz replay: $r_pass passed, $r_fail failed"
+echo "$((u_pass + e_pass + r_pass)) passed, $((u_fail + e_fail + r_fail)) failed"
+[ $((u_fail + e_fail + r_fail)) -eq 0 ]

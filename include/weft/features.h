@@ -29,7 +29,8 @@ typedef struct weft_features_stats {
  * @param stats  may be NULL
  * @return WEFT_OK; WEFT_ERR_NOT_FOUND "path:line: field 1 (node): unknown node 'x'";
  *         WEFT_ERR_PARSE "path:line: field N (feature): reason" (not an index, index over
- *         WEFT_FEATURES_MAX_INDEX, value not finite, an index twice in a line) or "path:line:
+ *         WEFT_FEATURES_MAX_INDEX, value not finite, an index twice in a line, with
+ *         @p row_normalise a row whose sum is too near 0 to divide by) or "path:line:
  *         field 1 (node): 'x' already has features on line L"; the codes of weft_io_next();
  *         WEFT_ERR_INVALID (no data line); WEFT_ERR_NOMEM
  */

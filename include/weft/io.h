@@ -44,11 +44,13 @@ void weft_io_close(weft_io_reader *r);
 
 /**
  * Read the next data line into @p rec, skipping blank lines and lines whose first
- * non-blank character is '#'. A trailing "\r\n" is accepted. The whole line must be valid
- * UTF-8 and must not contain NUL bytes.
+ * non-blank character is '#'. A trailing "\r\n" is accepted, and a UTF-8 byte order mark
+ * opening the file is dropped. The whole line must be valid UTF-8 and must not contain NUL
+ * bytes or carriage returns.
  * @param eof  set true (and @p rec untouched) at end of file, false otherwise
  * @return WEFT_OK, WEFT_ERR_PARSE ("path:line: reason": invalid UTF-8 at byte N, NUL byte,
- *         unbalanced CSV quote, more than WEFT_IO_MAX_FIELDS fields), WEFT_ERR_IO (read or
+ *         carriage return (lines ending in "\r" alone), unbalanced CSV quote, more than
+ *         WEFT_IO_MAX_FIELDS fields), WEFT_ERR_IO (read or
  *         gzip error), WEFT_ERR_NOMEM
  */
 weft_err weft_io_next(weft_io_reader *r, weft_io_record *rec, bool *eof, weft_error *err);
@@ -66,6 +68,13 @@ weft_io_format weft_io_get_format(const weft_io_reader *r);
  */
 weft_err weft_io_fail(const weft_io_reader *r, size_t lineno, size_t field, const char *what,
                       weft_error *err, const char *fmt, ...) __attribute__((format(printf, 6, 7)));
+
+/**
+ * What to add to a "found N fields" message about @p rec: a TSV line read as one field
+ * although it holds spaces was most likely meant to be split at them, so the note says that
+ * fields are separated by tabs; "" otherwise. Static text.
+ */
+const char *weft_io_fields_note(const weft_io_reader *r, const weft_io_record *rec);
 
 /**
  * Check that a name field is usable: not empty, at most WEFT_IO_MAX_NAME bytes.

@@ -2,7 +2,8 @@
 # Runs every tests/e2e/test_*.sh in turn. Each script is one group of end-to-end checks:
 # it exits 0 when all its checks pass. Environment given to each: WEFT (the binary),
 # BUILD, TOP (the source tree), E2E_TMP (a fresh directory removed afterwards).
-# E2E_SKIP: names of tests not to run (make check-asan sets it).
+# E2E_SKIP: names of tests not to run (make check-asan sets it). A passing test's lines that
+# start with "SKIP " (a part it could not run on this machine) are shown under its name.
 # The last line is "e2e: N passed, N failed"; the exit status is 0 only when none failed.
 set -u
 TOP=$(cd "$(dirname "$0")/../.." && pwd)
@@ -24,6 +25,7 @@ for t in "$TOP"/tests/e2e/test_*.sh; do
     if sh "$t" >"$E2E_TMP.log" 2>&1; then
         pass=$((pass + 1))
         echo "[PASS] e2e::$name"
+        grep '^SKIP ' "$E2E_TMP.log" | sed 's/^/    /'   # a part a test could not run here
     else
         fail=$((fail + 1))
         failed="$failed $name"

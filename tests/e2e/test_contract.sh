@@ -141,6 +141,8 @@ cat >"$E2E_TMP/cases-empty" <<'EOF'
     ("GET", "/v1/nodes/n0", 503),
     ("GET", "/v1/nodes/n0/similar", 503),
     ("GET", "/v1/snapshots", 503),
+    ("GET", "/v1/map", 503),
+    ("GET", "/", 200),
 ]
 EOF
 check "empty store: responses match the spec" contract "$E2E_TMP/cases-empty"
@@ -225,6 +227,18 @@ cat >"$E2E_TMP/cases-live" <<'EOF'
     ("GET", "/v1/nodes/n0/similar?k=51", 400),
     ("GET", "/v1/nodes/nobody/similar", 404),
     ("GET", "/v1/nodes/n0/similar?candidate_type=t99", 404),
+    # the map and the analyst page
+    ("GET", "/v1/map", 200),
+    ("GET", "/v1/map?max_points=20&pretty=1", 200),
+    ("GET", "/v1/map?max_points=0", 400),
+    ("GET", "/v1/map?max_points=20001", 400),
+    ("GET", "/v1/map?points=3", 400),
+    ("POST", "/v1/map", 405, {}),
+    ("GET", "/", 200),
+    ("GET", "/assets/app.js", 200),
+    ("GET", "/assets/app.css", 200),
+    ("GET", "/assets/nothing.js", 404),
+    ("POST", "/", 405, {}),
     # snapshots and the admin routes
     ("GET", "/v1/snapshots", 200),
     ("GET", "/v1/snapshots?all=1", 400),
@@ -274,6 +288,7 @@ cat >"$E2E_TMP/cases-labels" <<'EOF'
     ("POST", "/v1/links/score", 404, {"triples": [{"source": "n0", "target": "n1"}]}),
     ("GET", "/v1/links/explain?source=n0&target=n1", 404),
     ("POST", "/v1/labels/predict", 200, {"nodes": ["n0"]}),
+    ("GET", "/v1/map?max_points=50", 200),
 ]
 EOF
 check "label model only: responses match the spec" contract "$E2E_TMP/cases-labels"
