@@ -504,7 +504,7 @@ typedef struct http_check {
 } http_check;
 
 /** Most checks http_health_evaluate() gives. */
-#define HTTP_MAX_CHECKS 12
+#define HTTP_MAX_CHECKS 16
 
 /**
  * Judge the live snapshot of @p rq (its http_checks, its manifest, the settings) at time

@@ -648,6 +648,29 @@ static void check_norms(const http_model *m, http_check *out, size_t *n)
         k->norm_p99, k->norm_rows, NORM_RATIO_WARN, NORM_RATIO_FAIL);
 }
 
+/* The link model's index, when the snapshot has one: the recall@10 measured against the
+ * exact scan when it was written (include/weft/link_index.h), against its floor. Below the
+ * floor only a forced promotion can have made it live. */
+static void check_index(const http_model *m, const json_t *manifest, http_check *out,
+                        size_t *n)
+{
+    if (!m->has_links || m->index.kind == WEFT_LINK_INDEX_EXACT)
+        return;
+    const json_t *rec = json_object_get(json_object_get(manifest, "link"), "index");
+    double floor = json_number_value(json_object_get(rec, "recall_floor"));
+    json_int_t probes = json_integer_value(json_object_get(rec, "probe_queries"));
+    char lists[80] = "";
+    if (m->index.kind == WEFT_LINK_INDEX_IVF)
+        snprintf(lists, sizeof lists, ", %zu of %zu lists scanned per query", m->index.nprobe,
+                 m->index.ivf.n_lists);
+    http_check_status st = m->index.recall >= floor ? HTTP_CHECK_OK : HTTP_CHECK_FAIL;
+    say(add(out, n, "index_recall", st, m->index.recall, floor),
+        "%s index (oversample %zu%s): recall@10 %.4f against the exact scan on %lld probe "
+        "queries when it was written, floor %g; exact=true scans every row",
+        weft_link_index_kind_name(m->index.kind), m->index.oversample, lists, m->index.recall,
+        (long long)probes, floor);
+}
+
 static void check_drift(const http_model *m, http_check *out, size_t *n)
 {
     const http_checks *k = &m->checks;
@@ -764,6 +787,7 @@ size_t http_health_evaluate(const http_request *rq, double now, http_check *out)
                         "label", "accuracy", out, &n);
     check_nonfinite(&m->checks, out, &n);
     check_norms(m, out, &n);
+    check_index(m, manifest, out, &n);
     check_drift(m, out, &n);
     check_coverage(&m->checks, out, &n);
     return n;

@@ -90,6 +90,9 @@ print("%.3f" % (total / len(nodes)))
 PY
 check "ivf answers keep most of the exact top 10 over 60 nodes ($(cat "$E2E_TMP/overlap.txt"))" \
     awk -v r="$(cat "$E2E_TMP/overlap.txt")" 'BEGIN { exit !(r >= 0.9) }'
+curl -sS "$BASE/v1/health" >"$E2E_TMP/health.json"
+check "/v1/health reports the index's recall against its floor" test "$(json_get "$E2E_TMP/health.json" \
+    "[(c['status'], c['value'] == d2['link']['index']['recall_at_10'], c['threshold']) for c in d['checks'] if c['name'] == 'index_recall'] if (d2 := json.load(open('$E2E_TMP/m2.json'))) else 0")" = "[('ok', True, 0.95)]"
 stop_server
 
 # 3. The gate: an index below its floor is refused; the live snapshot stays.
