@@ -2,6 +2,7 @@
 #ifndef WEFT_SERVER_CMD_H
 #define WEFT_SERVER_CMD_H
 
+#include <signal.h>
 #include <stdarg.h>
 #include <stdbool.h>
 #include <stddef.h>
@@ -70,6 +71,10 @@ const char *cmd_opt_value(const char *sub, int argc, char **argv, int *i, const 
 /** Log a line "<UTC time> weft <who>: <message>" on stderr (serve, worker). */
 void cmd_log(const char *who, const char *fmt, ...) __attribute__((format(printf, 2, 3)));
 void cmd_vlog(const char *who, const char *fmt, va_list ap) __attribute__((format(printf, 2, 0)));
+
+/** Sleep @p seconds, or less once *@p stop is set (a signal handler's flag; seen within
+ *  0.1 s). The loops of worker and sync wait here. */
+void cmd_nap(double seconds, const volatile sig_atomic_t *stop);
 
 /** Online CPUs (at least 1): the default thread count of train and eval. */
 size_t cmd_online_cpus(void);

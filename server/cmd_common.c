@@ -124,3 +124,20 @@ bool cmd_parse_duration(const char *text, double *seconds)
     *seconds = x * unit;
     return true;
 }
+
+void cmd_nap(double seconds, const volatile sig_atomic_t *stop)
+{
+    struct timespec now;
+    clock_gettime(CLOCK_MONOTONIC, &now);
+    double end = (double)now.tv_sec + 1e-9 * (double)now.tv_nsec + seconds;
+    while (!*stop) {
+        clock_gettime(CLOCK_MONOTONIC, &now);
+        double left = end - ((double)now.tv_sec + 1e-9 * (double)now.tv_nsec);
+        if (left <= 0)
+            break;
+        if (left > 0.1)   /* a stop is seen within 0.1 s */
+            left = 0.1;
+        struct timespec step = { 0, (long)(left * 1e9) };
+        nanosleep(&step, NULL);
+    }
+}

@@ -503,28 +503,6 @@ static weft_err look(struct sync_state *st, weft_error *err)
     return e;
 }
 
-static double now_seconds(void)
-{
-    struct timespec ts;
-    clock_gettime(CLOCK_MONOTONIC, &ts);
-    return (double)ts.tv_sec + 1e-9 * (double)ts.tv_nsec;
-}
-
-/* Sleep @p seconds or until a stop is requested. */
-static void nap(double seconds)
-{
-    double end = now_seconds() + seconds;
-    while (!stop_requested) {
-        double left = end - now_seconds();
-        if (left <= 0)
-            break;
-        if (left > 0.1)
-            left = 0.1;
-        struct timespec ts = { 0, (long)(left * 1e9) };
-        nanosleep(&ts, NULL);
-    }
-}
-
 int cmd_sync_main(int argc, char **argv)
 {
     struct sync_opts o;
@@ -570,7 +548,7 @@ int cmd_sync_main(int argc, char **argv)
         }
         if (o.is_once)
             break;
-        nap(o.interval);
+        cmd_nap(o.interval, &stop_requested);
     }
     if (stop_requested)
         status = CMD_OK;

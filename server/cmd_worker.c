@@ -433,21 +433,6 @@ static double now_seconds(void)
     return (double)ts.tv_sec + 1e-9 * (double)ts.tv_nsec;
 }
 
-/* Sleep @p seconds or until a stop is requested. */
-static void nap(double seconds)
-{
-    double end = now_seconds() + seconds;
-    while (!stop_requested) {
-        double left = end - now_seconds();
-        if (left <= 0)
-            break;
-        if (left > 0.25)
-            left = 0.25;
-        struct timespec ts = { 0, (long)(left * 1e9) };
-        nanosleep(&ts, NULL);
-    }
-}
-
 static void print_help(void)
 {
     printf("usage: weft worker --config FILE [--once]\n\n"
@@ -521,7 +506,7 @@ int cmd_worker_main(int argc, char **argv)
         }
         if (once)
             break;
-        nap(c.check_every);
+        cmd_nap(c.check_every, &stop_requested);
     }
     cmd_log(SUB, stop_requested ? "stopped on request" : "stopped");
     config_fini(&c);

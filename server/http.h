@@ -395,6 +395,9 @@ void http_links_explain(const http_request *rq, http_reply *out);
 void http_labels_predict(const http_request *rq, http_reply *out);
 void http_labels_predict_batch(const http_request *rq, http_reply *out);
 void http_labels_explain(const http_request *rq, http_reply *out);
+/** The class of highest probability of @p node (the lowest class id on a tie), as every
+ *  answer about labels names it. */
+uint32_t http_labels_predicted_class(const weft_label_view *v, uint32_t node);
 /** The caution every answer about labels carries (probabilistic, human review, the law). */
 extern const char http_labels_caution[];
 void http_nodes_get(const http_request *rq, http_reply *out);

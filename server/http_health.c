@@ -367,17 +367,6 @@ static weft_err link_drift(const weft_link_view *now, const weft_link_view *befo
     return rc;
 }
 
-/* The class of @p v's node @p i with the highest probability (the first on a tie). */
-static uint32_t predicted_class(const weft_label_view *v, size_t i)
-{
-    const float *p = v->prob + i * v->n_classes;
-    uint32_t best = 0;
-    for (uint32_t c = 1; c < v->n_classes; c++)
-        if (p[c] > p[best])
-            best = c;
-    return best;
-}
-
 /* Share of the nodes in both label models whose predicted class (by name) is the same. */
 static void label_drift(const weft_label_view *now, const weft_label_view *before,
                         http_checks *c)
@@ -391,8 +380,11 @@ static void label_drift(const weft_label_view *now, const weft_label_view *befor
             continue;
         common++;
         size_t now_len = 0, before_len = 0;
-        const char *a = weft_names_get(&now->classes, predicted_class(now, i), &now_len);
-        const char *b = weft_names_get(&before->classes, predicted_class(before, j), &before_len);
+        const char *a = weft_names_get(&now->classes,
+                                       http_labels_predicted_class(now, (uint32_t)i), &now_len);
+        const char *b = weft_names_get(&before->classes,
+                                       http_labels_predicted_class(before, (uint32_t)j),
+                                       &before_len);
         same += now_len == before_len && !memcmp(a, b, now_len);
     }
     c->drift_nodes = common;

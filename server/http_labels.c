@@ -53,8 +53,7 @@ static bool request_node(const http_request *rq, http_reply *out, uint32_t *node
     return false;
 }
 
-/* The class of highest probability; the lowest class id on a tie. */
-static uint32_t predicted_class(const weft_label_view *v, uint32_t node)
+uint32_t http_labels_predicted_class(const weft_label_view *v, uint32_t node)
 {
     const float *p = v->prob + (size_t)node * v->n_classes;
     uint32_t best = 0;
@@ -167,7 +166,7 @@ static json_t *observed_json(const weft_label_view *v, uint32_t node)
  * memory. */
 static json_t *prediction_json(const weft_label_view *v, uint32_t node)
 {
-    uint32_t predicted = predicted_class(v, node);
+    uint32_t predicted = http_labels_predicted_class(v, node);
     json_t *body = body_json(v, node, predicted);
     bool bad = !body;
     bad |= json_object_set_new(body, "probability",
@@ -309,7 +308,7 @@ static weft_err attribute(const weft_label_view *v, uint32_t node, struct attrib
 {
     size_t c = v->n_classes;
     a->node = node;
-    a->predicted = predicted_class(v, node);
+    a->predicted = http_labels_predicted_class(v, node);
     a->n_row = (size_t)(v->adj_off[node + 1] - v->adj_off[node]);
     a->contrib = weft_alloc_array(a->n_row ? a->n_row * c : 1, sizeof *a->contrib);
     a->logit = weft_alloc_array(c, sizeof *a->logit);

@@ -49,18 +49,6 @@ static json_t *names_json(const weft_names_view *names, size_t n)
     return a;
 }
 
-/* The most probable class of @p node, the lower id on equal probabilities (as
- * /v1/labels/predict picks it). */
-static uint32_t predicted_class(const weft_label_view *v, uint32_t node)
-{
-    const float *p = v->prob + (size_t)node * v->n_classes;
-    uint32_t best = 0;
-    for (uint32_t c = 1; c < v->n_classes; c++)
-        if (p[c] > p[best])
-            best = c;
-    return best;
-}
-
 /* {"name", "x", "y", "type", "label", "observed"} of node @p id at (@p x, @p y). */
 static json_t *point_json(const http_model *m, const struct map_source *s, uint32_t id,
                           float x, float y)
@@ -73,7 +61,8 @@ static json_t *point_json(const http_model *m, const struct map_source *s, uint3
     return json_pack("{s:o, s:f, s:f, s:o, s:o, s:o}", "name", name_json(s->names, id), "x",
                      (double)x, "y", (double)y, "type",
                      has_type ? name_json(&t->names, t->of_node[id]) : json_null(), "label",
-                     has_label ? name_json(&l->classes, predicted_class(l, id)) : json_null(),
+                     has_label ? name_json(&l->classes, http_labels_predicted_class(l, id))
+                               : json_null(),
                      "observed",
                      has_observed ? name_json(&l->classes, l->observed[id]) : json_null());
 }
