@@ -299,9 +299,10 @@ rm -rf "$OUT/store-bench"
 # ---- soak: SOAK_SECONDS (default 600) of mixed load with a promotion every 10 s ----
 # bench/soak.sh appends its own section (errors, resident memory, file descriptors and
 # threads at start, after warm-up, at the end, and the verdict); SOAK_SECONDS=0 skips it.
+# Alone: SOAK_SECONDS=600 BUILD=build sh bench/soak.sh.
 if [ "${SOAK_SECONDS:-600}" != 0 ]; then
     REPORT="$report" BUILD="$BUILD" SOAK_SECONDS="${SOAK_SECONDS:-600}" sh "$TOP/bench/soak.sh" \
-        >/dev/null || echo "**The soak failed**: see its section above, when written, and $OUT/soak/." >>"$report"
+        >/dev/null || echo "**bench/soak.sh failed**: see its section above and $OUT/soak." >>"$report"
 fi
 
 cat "$report"

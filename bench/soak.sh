@@ -11,7 +11,7 @@
 # are sampled.
 # Errors: wrk's non-2xx answers and socket errors, and the answers the server itself counted
 # outside 2xx (/metrics); all must be 0.
-# Growth, the rule: the baseline is the sample at the end of the warm-up (max(20 s, a tenth
+# Growth, the rule: the baseline is the sample at the end of the warm-up (max(30 s, a tenth
 # of the run): both versions have been loaded by then); the end is the last sample, still
 # under load. Resident memory is not growing when the end is within max(2 MiB, 5%) of the
 # baseline; file descriptors and threads when the end is at most the baseline. The
@@ -166,7 +166,7 @@ failures = int(num(r"(?m)^weft_snapshot_load_failures_total (\S+)$", metrics, -1
 promoted = sum(1 for p in promos if p[2] == "ok")
 promote_failed = sum(1 for p in promos if p[2] != "ok")
 
-warmup = max(20, soak // 10)
+warmup = max(30, soak // 10)
 base = next((s for s in samples if s[0] >= warmup), samples[-1])
 end = samples[-1]
 start = samples[0]
@@ -217,7 +217,7 @@ lines = [
     "Promotions: %d done, %d failed; versions the server made live: %d (the first load and one per"
     " promotion), load failures %d. Server alive at the end: %s." % (
         promoted, promote_failed, swaps, failures, alive),
-    "Growth: %s. Rule: against the sample after the warm-up (max(20 s, a tenth of the run)), the"
+    "Growth: %s. Rule: against the sample after the warm-up (max(30 s, a tenth of the run)), the"
     " last sample's resident memory within max(2 MiB, 5%%) (here %.1f MiB), file descriptors and"
     " threads no more. Resident memory after the warm-up moved %+.1f MiB (least-squares slope"
     " %+.1f KiB/min; over the second half of the run %+.1f KiB/min)." % (

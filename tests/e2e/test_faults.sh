@@ -220,6 +220,7 @@ echo "$committed of them after a new version was promoted"
 check "(a) kills landed during training runs ($in_training of $KILLS)" test "$in_training" -ge 3
 live=$(live_of "$A/store")
 check "(a) after the kills the server answers from the store's live version $live" wait_served "$live"
+sleep 2   # retrain_every = 1s counts whole seconds from the newest snapshot's "created"
 "$WEFT" worker --config "$A/worker.conf" --once >"$A/final.log" 2>&1
 after=$(live_of "$A/store")
 check "(a) a worker run after the kills promotes version $after" \

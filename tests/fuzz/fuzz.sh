@@ -13,6 +13,7 @@ set -u
 TOP=$(cd "$(dirname "$0")/../.." && pwd)
 cd "$TOP" || exit 1
 BUILD=${BUILD:-build-fuzz}
+case "$BUILD" in /*) ;; *) BUILD="$TOP/$BUILD" ;; esac
 SECONDS_EACH=${FUZZ_SECONDS:-600}
 mode=${1:-}
 [ $# -gt 0 ] && shift
@@ -44,7 +45,7 @@ run_one() {
     set -- "$@" "$new" "tests/fuzz/corpus/$t"
     [ -d "tests/fuzz/crashes/$t" ] && set -- "$@" "tests/fuzz/crashes/$t"
     start=$(date +%s)
-    TMPDIR=$TOP/$tmp ASAN_OPTIONS=detect_leaks=1 \
+    TMPDIR=$tmp ASAN_OPTIONS=detect_leaks=1 \
         UBSAN_OPTIONS=halt_on_error=1:print_stacktrace=1 "$bin" "$@" >"$log" 2>&1
     rc=$?
     end=$(date +%s)
@@ -70,8 +71,13 @@ merge_one() {
         return 0
     fi
     before=$(find "tests/fuzz/corpus/$t" -type f | wc -l)
-    "$BUILD/fuzz/fuzz_$t" -merge=1 "tests/fuzz/corpus/$t" "$new" >"$BUILD/fuzz/logs/$t.merge.log" 2>&1 ||
+    tmp=$BUILD/fuzz/tmp/$t
+    rm -rf "$tmp"
+    mkdir -p "$tmp" "$BUILD/fuzz/logs"
+    TMPDIR=$tmp "$BUILD/fuzz/fuzz_$t" -merge=1 -timeout=10 -rss_limit_mb=2048 \
+        "tests/fuzz/corpus/$t" "$new" >"$BUILD/fuzz/logs/$t.merge.log" 2>&1 ||
         { echo "fuzz $t: merge failed (see $BUILD/fuzz/logs/$t.merge.log)"; return 1; }
+    rm -rf "$tmp"
     after=$(find "tests/fuzz/corpus/$t" -type f | wc -l)
     echo "fuzz $t: corpus $before -> $after files"
 }
