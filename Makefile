@@ -130,10 +130,10 @@ fuzz-merge:
 # UBSan findings stop the process, so they fail the test that met them. Every unit test, the
 # fuzz corpora and the e2e tests run instrumented, except those that measure rather than
 # exercise new code paths (the quality runs over many seeds, the full demo training twice,
-# the 30 s load test, the 60 s soak, the 20 kills): under the sanitizers they would take most
+# the 30 s load test, the 60 s soak, the 20 kills, the 15 worker kills under load): under the sanitizers they would take most
 # of CI's 40 minutes. The code they run is covered by the others.
 ASAN_E2E_SKIP := test_gcn test_gcn_link test_link_models test_hotswap test_crash test_demo \
-                 test_readme test_soak
+                 test_readme test_soak test_faults
 check-asan:
 	UBSAN_OPTIONS=halt_on_error=1:print_stacktrace=1 ASAN_OPTIONS=detect_leaks=1 \
 	E2E_SKIP="$(ASAN_E2E_SKIP)" $(MAKE) BUILD=build-asan OPT="-O1 -g -fno-omit-frame-pointer -fsanitize=address,undefined" \
