@@ -130,8 +130,8 @@ fuzz-merge:
 # UBSan findings stop the process, so they fail the test that met them. Every unit test, the
 # fuzz corpora and the e2e tests run instrumented, except those that measure rather than
 # exercise new code paths (the quality runs over many seeds, the full demo training twice,
-# the 30 s load test, the 60 s soak, the 20 kills, the 15 worker kills under load): under the sanitizers they would take most
-# of CI's 40 minutes. The code they run is covered by the others.
+# the 30 s load test, the 60 s soak, the 20 kills, the 15 worker kills under load): under
+# the sanitizers they would take most of CI's 40 minutes. The others cover the code they run.
 ASAN_E2E_SKIP := test_gcn test_gcn_link test_link_models test_hotswap test_crash test_demo \
                  test_readme test_soak test_faults
 check-asan:

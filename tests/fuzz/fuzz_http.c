@@ -468,7 +468,7 @@ int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size)
         is_verbose = getenv("WEFT_FUZZ_VERBOSE") != NULL;
     }
     long blocks_before = atomic_load(&live_blocks);
-    bool has_connected = false;   /* a new connection stays open: its blocks stay too */
+    bool has_connected = false;   /* a new connection left open keeps its blocks */
     struct buf req = { 0 }, in = { 0 };
     build_request(data, size, &req);
     const char *method = methods[(size > 0 ? data[0] : 0) % COUNT(methods)];
@@ -503,7 +503,7 @@ int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size)
     }
     free(req.p);
     free(in.p);
-    if (!has_connected)
+    if (!has_connected || client < 0)
         wait_for_frees(blocks_before);
     return 0;
 }
