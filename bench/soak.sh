@@ -57,25 +57,6 @@ S="$OUT/store"
     "$WEFT" snapshots promote 2 --store "$S"
 } >"$OUT/train.log" 2>&1 || { echo "soak: training failed, see $OUT/train.log" >&2; exit 1; }
 
-cat >"$OUT/mix.lua" <<'LUA'
--- weights out of 10: links predict 4, labels predict 2, links explain 1, labels explain 2,
--- metrics 1; Cora's nodes n0 .. n2707 drawn uniformly
-local n = 2708
-math.randomseed(11)
-request = function()
-    local r, a, b = math.random(1, 10), math.random(0, n - 1), math.random(0, n - 1)
-    if r <= 4 then
-        return wrk.format("GET", "/v1/links/predict?source=n" .. a .. "&k=10")
-    elseif r <= 6 then
-        return wrk.format("GET", "/v1/labels/predict?node=n" .. a)
-    elseif r <= 7 then
-        return wrk.format("GET", "/v1/links/explain?source=n" .. a .. "&target=n" .. b)
-    elseif r <= 9 then
-        return wrk.format("GET", "/v1/labels/explain?node=n" .. a)
-    end
-    return wrk.format("GET", "/metrics")
-end
-LUA
 
 PORT=$(/usr/bin/python3 -c 'import socket; s=socket.socket(); s.bind(("127.0.0.1",0)); print(s.getsockname()[1]); s.close()')
 BASE="http://127.0.0.1:$PORT"
@@ -101,7 +82,7 @@ sample() {
 }
 SAMPLES="$OUT/samples.txt"   # seconds since the load began, VmRSS KiB, fds, threads, anon, file
 sample 0 >"$SAMPLES"
-wrk -t1 -c"$CONNS" -d"$((SOAK + 5))s" --latency -s "$OUT/mix.lua" "$BASE" >"$OUT/wrk.txt" 2>&1 &
+wrk -t1 -c"$CONNS" -d"$((SOAK + 5))s" --latency -s "$TOP/bench/mixed_load.lua" "$BASE" >"$OUT/wrk.txt" 2>&1 &
 WRK=$!
 start=$(date +%s)
 : >"$OUT/promotions.txt"

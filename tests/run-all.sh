@@ -7,34 +7,30 @@ TOP=$(cd "$(dirname "$0")/.." && pwd)
 BUILD=${BUILD:-build}
 cd "$TOP" || exit 1
 log=$(mktemp)
-"$BUILD/unit_tests" -j2 >"$log" 2>&1
-unit_rc=$?
-cat "$log"
-# Criterion: "[====] Synthesis: Tested: 3 | Passing: 1 | Failing: 2 | Crashing: 1"
-u_pass=$(sed -n 's/.*Synthesis: Tested: [0-9]* | Passing: \([0-9]*\) | Failing: \([0-9]*\).*/\1/p' "$log" | tail -n 1)
-u_fail=$(sed -n 's/.*Synthesis: Tested: [0-9]* | Passing: \([0-9]*\) | Failing: \([0-9]*\).*/\2/p' "$log" | tail -n 1)
-[ -n "$u_pass" ] || u_pass=0
-[ -n "$u_fail" ] || u_fail=0
-# A crashing fixture exits non-zero while Synthesis may show no failure: trust the exit code.
-[ "$unit_rc" -ne 0 ] && [ "$u_fail" -eq 0 ] && u_fail=1
-BUILD="$BUILD" tests/e2e/run.sh >"$log" 2>&1
-e2e_rc=$?
-cat "$log"
-e_pass=$(sed -n 's/^e2e: \([0-9]*\) passed, \([0-9]*\) failed$/\1/p' "$log" | tail -n 1)
-e_fail=$(sed -n 's/^e2e: \([0-9]*\) passed, \([0-9]*\) failed$/\2/p' "$log" | tail -n 1)
-[ -n "$e_pass" ] || e_pass=0
-[ -n "$e_fail" ] || e_fail=0
-[ "$e2e_rc" -ne 0 ] && [ "$e_fail" -eq 0 ] && e_fail=1
-BUILD="$BUILD" tests/fuzz/replay.sh >"$log" 2>&1
-replay_rc=$?
-cat "$log"
-r_pass=$(sed -n 's/^replay: \([0-9]*\) passed, \([0-9]*\) failed$/\1/p' "$log" | tail -n 1)
-r_fail=$(sed -n 's/^replay: \([0-9]*\) passed, \([0-9]*\) failed$/\2/p' "$log" | tail -n 1)
-[ -n "$r_pass" ] || r_pass=0
-[ -n "$r_fail" ] || r_fail=0
-[ "$replay_rc" -ne 0 ] && [ "$r_fail" -eq 0 ] && r_fail=1
+# group NAME COMMAND...: run one group, show its output, and set NAME_pass and NAME_fail from
+# its summary line ("PREFIX: N passed, N failed"; for Criterion, the Synthesis line). A
+# non-zero exit with no failure counted (a crash before the summary) counts as one failure.
+group() {
+    name=$1
+    shift
+    "$@" >"$log" 2>&1
+    rc=$?
+    cat "$log"
+    if [ "$name" = unit ]; then
+        # Criterion: "[====] Synthesis: Tested: 3 | Passing: 1 | Failing: 2 | Crashing: 1"
+        expr='s/.*Synthesis: Tested: [0-9]* | Passing: \([0-9]*\) | Failing: \([0-9]*\).*/\1 \2/p'
+    else
+        expr="s/^$name: \\([0-9]*\\) passed, \\([0-9]*\\) failed\$/\\1 \\2/p"
+    fi
+    set -- $(sed -n "$expr" "$log" | tail -n 1) 0 0
+    [ "$rc" -ne 0 ] && [ "$2" -eq 0 ] && set -- "$1" 1
+    eval "${name}_pass=$1 ${name}_fail=$2"
+}
+group unit "$BUILD/unit_tests" -j2
+group e2e env BUILD="$BUILD" tests/e2e/run.sh
+group replay env BUILD="$BUILD" tests/fuzz/replay.sh
 rm -f "$log"
-echo "unit: $u_pass passed, $u_fail failed; e2e: $e_pass passed, $e_fail failed;" \
-    "fuzz replay: $r_pass passed, $r_fail failed"
-echo "$((u_pass + e_pass + r_pass)) passed, $((u_fail + e_fail + r_fail)) failed"
-[ $((u_fail + e_fail + r_fail)) -eq 0 ]
+echo "unit: $unit_pass passed, $unit_fail failed; e2e: $e2e_pass passed, $e2e_fail failed;" \
+    "fuzz replay: $replay_pass passed, $replay_fail failed"
+echo "$((unit_pass + e2e_pass + replay_pass)) passed, $((unit_fail + e2e_fail + replay_fail)) failed"
+[ $((unit_fail + e2e_fail + replay_fail)) -eq 0 ]

@@ -51,28 +51,11 @@ cleanup() {
 trap cleanup EXIT
 trap 'exit 1' INT TERM
 
-# The request mix (the same weights as bench/soak.sh): link top-10 4, labels 2, link
-# explanation 1, label explanation 2, metrics 1, out of 10; nodes drawn uniformly.
-cat >"$E2E_TMP/mix.lua" <<'LUA'
-local n = 2708
-request = function()
-    local r, a, b = math.random(1, 10), math.random(0, n - 1), math.random(0, n - 1)
-    if r <= 4 then
-        return wrk.format("GET", "/v1/links/predict?source=n" .. a .. "&k=10")
-    elseif r <= 6 then
-        return wrk.format("GET", "/v1/labels/predict?node=n" .. a)
-    elseif r <= 7 then
-        return wrk.format("GET", "/v1/links/explain?source=n" .. a .. "&target=n" .. b)
-    elseif r <= 9 then
-        return wrk.format("GET", "/v1/labels/explain?node=n" .. a)
-    end
-    return wrk.format("GET", "/metrics")
-end
-LUA
+# The request mix of bench/soak.sh (bench/mixed_load.lua).
 
 # start_load OUT: wrk on $BASE until stop_load (SIGINT makes it print its figures).
 start_load() {
-    wrk -t1 -c8 -d3600s -s "$E2E_TMP/mix.lua" "$BASE" >"$1" 2>&1 &
+    wrk -t1 -c8 -d3600s -s "$TOP/bench/mixed_load.lua" "$BASE" >"$1" 2>&1 &
     WRK=$!
 }
 stop_load() {
