@@ -3,8 +3,9 @@
  * The int8 scan: a query q is quantised too, q8 = round(q / sq) with sq = max |q| / 127,
  * and row i's approximate score is scale_i sq (sum_j byte_ij q8_j - 128 sum_j q8_j), where
  * byte = code + 128 (so the sum of byte x q8 is what VNNI's unsigned-by-signed product
- * gives, and the offset costs one subtraction per row). Rows are scored in blocks, and a
- * block's scores are compared with the candidate selection's bar before any is offered, as
+ * gives, and the offset costs one subtraction per row). Rows are scored 16 at a time, in
+ * the blocked layout of include/weft/index.h (a block's 16 sums build up in the 16 lanes of
+ * one register, four values of each row per instruction), and a block's scores are compared with the candidate selection's bar before any is offered, as
  * in core/topk.c. The candidates are then re-scored with weft_kernel_dot, so the scores
  * returned, and the order, are those of the exact scan; a list differs from the exact one
  * only where a row of the exact top k was not among the candidates. */
@@ -26,12 +27,11 @@
 #include <immintrin.h>
 #endif
 
-/* Rows scored per block before the bar check: their int32 sums stay in L1. */
-enum { BLOCK_ROWS = 256 };
-
 /* Rows per block of the k-means assignment: the block's distances to every centroid
  * (BLOCK x k floats) are one matrix product. */
 enum { ASSIGN_ROWS = 256 };
+
+enum { BLOCK = WEFT_INDEX_BLOCK_ROWS, GROUP = WEFT_INDEX_GROUP };
 
 static int8_t clamp_code(float v)
 {
@@ -39,7 +39,9 @@ static int8_t clamp_code(float v)
     return (int8_t)(c > 127 ? 127 : c < -127 ? -127 : c);
 }
 
-static void encode_row(const float *x, size_t d, uint8_t *code, float *scale)
+/* Row @p x (d values) into position @p pos of the blocked codes @p code, its scale into
+ * *@p scale. The padding around it is left as it is (128 from weft_index_encode's fill). */
+static void encode_row(const float *x, size_t d, uint8_t *code, size_t pos, float *scale)
 {
     float m = 0.0f;
     bool is_finite = true;
@@ -49,29 +51,38 @@ static void encode_row(const float *x, size_t d, uint8_t *code, float *scale)
         m = a > m ? a : m;
     }
     if (!is_finite || m == 0.0f) {
-        memset(code, 128, d);
+        for (size_t j = 0; j < d; j++)
+            code[weft_index_code_at(d, pos, j)] = 128;
         *scale = is_finite ? 0.0f : NAN;
         return;
     }
     float s = m / 127.0f;
     for (size_t j = 0; j < d; j++)
-        code[j] = (uint8_t)(clamp_code(x[j] / s) + 128);
+        code[weft_index_code_at(d, pos, j)] = (uint8_t)(clamp_code(x[j] / s) + 128);
     *scale = s;
+}
+
+/* Rows @p row_id[p] of @p e (or row p, when row_id is NULL) into position p of @p code. */
+static void encode_rows(const float *e, size_t n, size_t d, const uint32_t *row_id,
+                        uint8_t *code, float *scale)
+{
+    memset(code, 128, weft_index_code_bytes(n, d));
+    for (size_t p = 0; p < n; p++)
+        encode_row(e + (size_t)(row_id ? row_id[p] : p) * d, d, code, p, scale + p);
 }
 
 void weft_index_encode(const float *e, size_t n, size_t d, uint8_t *code, float *scale)
 {
-    for (size_t i = 0; i < n; i++)
-        encode_row(e + i * d, d, code + i * d, scale + i);
+    encode_rows(e, n, d, NULL, code, scale);
 }
 
 /* ---- the int8 scan ---- */
 
 /* A quantised query. */
 struct query8 {
-    int8_t *q8;          /* d, padded to a multiple of 64 with zeros */
+    int32_t *q32;        /* the codes, GROUP to a word (the groups of a row; zero padded) */
     float sq;            /* its scale */
-    int32_t offset;      /* 128 x sum of q8: subtracted from each byte x q8 sum */
+    int32_t offset;      /* 128 x sum of the codes: subtracted from each byte x code sum */
 };
 
 static bool type_passes(const weft_index_filter *f, uint32_t id)
@@ -95,42 +106,50 @@ static float bar_of(const weft_topk *t)
     return t->n < t->k ? -INFINITY : t->score[0];
 }
 
-/* The approximate score of a row from its byte x q8 sum. */
-static float approx_score(int32_t sum, float scale, const struct query8 *q)
+/* What a scan offers from: positions [p0, p1) of the codes, each position p the row
+ * row_id[p] (or p, when row_id is NULL). */
+struct scan_range {
+    size_t p0, p1;
+    const uint32_t *row_id;
+};
+
+static uint32_t row_at(const struct scan_range *r, size_t p)
 {
-    return scale * q->sq * (float)((int64_t)sum - q->offset);
+    return r->row_id ? r->row_id[p] : (uint32_t)p;
 }
 
-/* Score code rows [0, m) (their ids: row_id[i], or first + i) and offer those that reach the
- * candidates' bar, portable: the sums of a block first (a loop the compiler vectorises per
- * instruction set), then the bar check. */
+/* The byte x code sums of the 16 rows of block @p blk (@p groups groups), portable: a loop
+ * the compiler vectorises per instruction set. */
 WEFT_CLONES
-static void block_sums(const uint8_t *code, size_t m, size_t d, const int8_t *q8, int32_t *out)
+static void block_sums(const uint8_t *blk, size_t groups, const int32_t *q32, int32_t *out)
 {
-    for (size_t i = 0; i < m; i++) {
-        const uint8_t *row = code + i * d;
-        int32_t acc = 0;
-        for (size_t j = 0; j < d; j++)
-            acc += (int32_t)row[j] * (int32_t)q8[j];
-        out[i] = acc;
+    for (size_t r = 0; r < BLOCK; r++)
+        out[r] = 0;
+    for (size_t g = 0; g < groups; g++) {
+        const uint8_t *grp = blk + g * (GROUP * BLOCK);
+        const int8_t *qg = (const int8_t *)(q32 + g);
+        for (size_t r = 0; r < BLOCK; r++)
+            for (size_t b = 0; b < GROUP; b++)
+                out[r] += (int32_t)grp[r * GROUP + b] * (int32_t)qg[b];
     }
 }
 
-static void scan_portable(const uint8_t *code, const float *scale, size_t m, size_t d,
-                          const struct query8 *q, const uint32_t *row_id, size_t first,
+/* Score positions [r->p0, r->p1) of @p code and offer those that reach the candidates' bar,
+ * portable: a block's sums first, then the bar check of each row in it. */
+static void scan_portable(const uint8_t *code, const float *scale, size_t d,
+                          const struct query8 *q, const struct scan_range *r,
                           const weft_index_filter *f, weft_topk *t)
 {
-    int32_t sums[BLOCK_ROWS];
-    for (size_t b0 = 0; b0 < m; b0 += BLOCK_ROWS) {
-        size_t nb = m - b0 < BLOCK_ROWS ? m - b0 : BLOCK_ROWS;
-        block_sums(code + b0 * d, nb, d, q->q8, sums);
-        float bar = bar_of(t);
-        for (size_t i = 0; i < nb; i++) {
-            float s = approx_score(sums[i], scale[b0 + i], q);   /* NaN scale: never >= */
-            if (s >= bar) {
-                offer(t, f, row_id ? row_id[b0 + i] : (uint32_t)(first + b0 + i), s);
-                bar = bar_of(t);
-            }
+    size_t groups = weft_index_groups(d), bytes = weft_index_block_bytes(d);
+    int32_t sums[BLOCK];
+    for (size_t b = r->p0 / BLOCK; b * BLOCK < r->p1; b++) {
+        block_sums(code + b * bytes, groups, q->q32, sums);
+        size_t lo = b * BLOCK < r->p0 ? r->p0 : b * BLOCK;
+        size_t hi = (b + 1) * BLOCK < r->p1 ? (b + 1) * BLOCK : r->p1;
+        for (size_t p = lo; p < hi; p++) {
+            float s = (float)(sums[p - b * BLOCK] - q->offset) * (scale[p] * q->sq);
+            if (s >= bar_of(t))   /* a NaN scale: never >= */
+                offer(t, f, row_at(r, p), s);
         }
     }
 }
@@ -139,95 +158,60 @@ static void scan_portable(const uint8_t *code, const float *scale, size_t m, siz
 
 #define VNNI __attribute__((target("avx512f,avx512bw,avx512vnni")))
 
-/* The transposing reduction of core/topk.c in integers: 16 accumulators of 16 lanes in,
- * lane L of the result holds the sum of accumulator (L >> 2) + 4 (L & 3). */
-VNNI static inline __m512i fold_i32(__m512i a, __m512i b, int step)
+/* The lanes of block @p b that lie in [p0, p1). */
+VNNI static inline __mmask16 lanes_in(size_t b, size_t p0, size_t p1)
 {
-    __m512 fa = _mm512_castsi512_ps(a), fb = _mm512_castsi512_ps(b);
-    __m512 lo, hi;
-    switch (step) {
-    case 8:
-        lo = _mm512_shuffle_f32x4(fa, fb, _MM_SHUFFLE(1, 0, 1, 0));
-        hi = _mm512_shuffle_f32x4(fa, fb, _MM_SHUFFLE(3, 2, 3, 2));
-        break;
-    case 4:
-        lo = _mm512_shuffle_f32x4(fa, fb, _MM_SHUFFLE(2, 0, 2, 0));
-        hi = _mm512_shuffle_f32x4(fa, fb, _MM_SHUFFLE(3, 1, 3, 1));
-        break;
-    case 2:
-        lo = _mm512_shuffle_ps(fa, fb, _MM_SHUFFLE(1, 0, 1, 0));
-        hi = _mm512_shuffle_ps(fa, fb, _MM_SHUFFLE(3, 2, 3, 2));
-        break;
-    default:
-        lo = _mm512_shuffle_ps(fa, fb, _MM_SHUFFLE(2, 0, 2, 0));
-        hi = _mm512_shuffle_ps(fa, fb, _MM_SHUFFLE(3, 1, 3, 1));
-        break;
-    }
-    return _mm512_add_epi32(_mm512_castps_si512(lo), _mm512_castps_si512(hi));
+    size_t first = b * BLOCK;
+    unsigned lo = first < p0 ? (unsigned)(p0 - first) : 0u;
+    unsigned hi = p1 - first < BLOCK ? (unsigned)(p1 - first) : (unsigned)BLOCK;
+    return (__mmask16)((0xffffu >> (BLOCK - hi)) & (0xffffu << lo));
 }
 
-VNNI static inline __m512i reduce16_i32(const __m512i acc[16])
-{
-    __m512i u[8], x[4];
-    for (int i = 0; i < 8; i++)
-        u[i] = fold_i32(acc[2 * i], acc[2 * i + 1], 8);
-    for (int i = 0; i < 4; i++)
-        x[i] = fold_i32(u[2 * i], u[2 * i + 1], 4);
-    return fold_i32(fold_i32(x[0], x[1], 2), fold_i32(x[2], x[3], 2), 1);
-}
-
-#define ACC_OF_LANE(L) (((L) >> 2) + 4 * ((L) & 3))
-
-/* scan_portable with VNNI, 16 rows per step (64 byte products per instruction), the
- * approximate scores and the bar check in registers; the rows past the last full step go to
- * scan_portable. The same sums, so the same candidates. */
-VNNI static void scan_vnni(const uint8_t *code, const float *scale, size_t m, size_t d,
-                           const struct query8 *q, const uint32_t *row_id, size_t first,
+/* scan_portable with VNNI: a block's 16 sums in one register (four chains of products, a
+ * group of every row per instruction), the approximate scores and the bar check there too.
+ * The same sums, so the same candidates. */
+VNNI static void scan_vnni(const uint8_t *code, const float *scale, size_t d,
+                           const struct query8 *q, const struct scan_range *r,
                            const weft_index_filter *f, weft_topk *t)
 {
-    size_t d_full = d & ~(size_t)63;
-    __mmask64 tail = (d & 63) ? (((__mmask64)1 << (d & 63)) - 1) : 0;
+    size_t groups = weft_index_groups(d), bytes = weft_index_block_bytes(d);
+    size_t g4 = groups & ~(size_t)3;
     const __m512i offset = _mm512_set1_epi32(q->offset);
     const __m512 sq = _mm512_set1_ps(q->sq);
     __m512 bar = _mm512_set1_ps(bar_of(t));
-    size_t i = 0;
-    for (; i + 16 <= m; i += 16) {
-        const uint8_t *rows = code + i * d;
-        __m512i acc[16];
-        for (int r = 0; r < 16; r++)
-            acc[r] = _mm512_setzero_si512();
-        for (size_t c = 0; c < d_full; c += 64) {
-            __m512i qv = _mm512_loadu_si512(q->q8 + c);
-#pragma GCC unroll 16
-            for (int r = 0; r < 16; r++)
-                acc[ACC_OF_LANE(r)] = _mm512_dpbusd_epi32(
-                    acc[ACC_OF_LANE(r)], _mm512_loadu_si512(rows + (size_t)r * d + c), qv);
+    for (size_t b = r->p0 / BLOCK; b * BLOCK < r->p1; b++) {
+        const uint8_t *blk = code + b * bytes;
+        __m512i a0 = _mm512_setzero_si512(), a1 = a0, a2 = a0, a3 = a0;
+        size_t g = 0;
+        for (; g < g4; g += 4) {
+            a0 = _mm512_dpbusd_epi32(a0, _mm512_loadu_si512(blk + (g + 0) * 64),
+                                     _mm512_set1_epi32(q->q32[g + 0]));
+            a1 = _mm512_dpbusd_epi32(a1, _mm512_loadu_si512(blk + (g + 1) * 64),
+                                     _mm512_set1_epi32(q->q32[g + 1]));
+            a2 = _mm512_dpbusd_epi32(a2, _mm512_loadu_si512(blk + (g + 2) * 64),
+                                     _mm512_set1_epi32(q->q32[g + 2]));
+            a3 = _mm512_dpbusd_epi32(a3, _mm512_loadu_si512(blk + (g + 3) * 64),
+                                     _mm512_set1_epi32(q->q32[g + 3]));
         }
-        if (tail) {
-            __m512i qv = _mm512_maskz_loadu_epi8(tail, q->q8 + d_full);
-#pragma GCC unroll 16
-            for (int r = 0; r < 16; r++)
-                acc[ACC_OF_LANE(r)] = _mm512_dpbusd_epi32(
-                    acc[ACC_OF_LANE(r)],
-                    _mm512_maskz_loadu_epi8(tail, rows + (size_t)r * d + d_full), qv);
-        }
-        __m512i sums = _mm512_sub_epi32(reduce16_i32(acc), offset);
-        __m512 s = _mm512_mul_ps(_mm512_cvtepi32_ps(sums),
-                                 _mm512_mul_ps(_mm512_loadu_ps(scale + i), sq));
-        __mmask16 pass = _mm512_cmp_ps_mask(s, bar, _CMP_GE_OQ);   /* NaN: false */
+        for (; g < groups; g++)
+            a0 = _mm512_dpbusd_epi32(a0, _mm512_loadu_si512(blk + g * 64),
+                                     _mm512_set1_epi32(q->q32[g]));
+        __m512i sums = _mm512_add_epi32(_mm512_add_epi32(a0, a1), _mm512_add_epi32(a2, a3));
+        __mmask16 in = lanes_in(b, r->p0, r->p1);
+        __m512 sc = _mm512_maskz_loadu_ps(in, scale + b * BLOCK);
+        __m512 s = _mm512_mul_ps(_mm512_cvtepi32_ps(_mm512_sub_epi32(sums, offset)),
+                                 _mm512_mul_ps(sc, sq));
+        __mmask16 pass = _mm512_mask_cmp_ps_mask(in, s, bar, _CMP_GE_OQ);   /* NaN: false */
         if (pass) {
-            float v[16];
+            float v[BLOCK];
             _mm512_storeu_ps(v, s);
             for (unsigned bits = pass; bits; bits &= bits - 1) {
                 unsigned lane = (unsigned)__builtin_ctz(bits);
-                offer(t, f, row_id ? row_id[i + lane] : (uint32_t)(first + i + lane), v[lane]);
+                offer(t, f, row_at(r, b * BLOCK + lane), v[lane]);
             }
             bar = _mm512_set1_ps(bar_of(t));
         }
     }
-    if (i < m)
-        scan_portable(code + i * d, scale + i, m - i, d, q, row_id ? row_id + i : NULL,
-                      first + i, f, t);
 }
 
 /* Set by weft_index_allow_native(false): the one mutable global of this module. */
@@ -262,17 +246,19 @@ void weft_index_allow_native(bool allow)
 #endif
 }
 
-static void scan_codes(const uint8_t *code, const float *scale, size_t m, size_t d,
-                       const struct query8 *q, const uint32_t *row_id, size_t first,
+static void scan_codes(const uint8_t *code, const float *scale, size_t d,
+                       const struct query8 *q, const struct scan_range *r,
                        const weft_index_filter *f, weft_topk *t)
 {
+    if (r->p0 >= r->p1)
+        return;
 #ifdef WEFT_INDEX_X86
     if (use_vnni()) {
-        scan_vnni(code, scale, m, d, q, row_id, first, f, t);
+        scan_vnni(code, scale, d, q, r, f, t);
         return;
     }
 #endif
-    scan_portable(code, scale, m, d, q, row_id, first, f, t);
+    scan_portable(code, scale, d, q, r, f, t);
 }
 
 /* Quantise @p q (d); false when out of memory. A non-finite query is left to the exact path
@@ -287,17 +273,18 @@ static bool query8_init(struct query8 *qq, const float *q, size_t d, bool *is_fi
         float a = fabsf(q[j]);
         m = a > m ? a : m;
     }
-    size_t padded = (d + 63) & ~(size_t)63;
-    qq->q8 = calloc(padded ? padded : 64, 1);
-    if (!qq->q8)
+    size_t groups = weft_index_groups(d);
+    qq->q32 = calloc(groups ? groups : 1, sizeof *qq->q32);
+    if (!qq->q32)
         return false;
     if (!*is_finite || m == 0.0f)   /* zero codes: every approximate score is 0 */
         return true;
     qq->sq = m / 127.0f;
+    int8_t *q8 = (int8_t *)qq->q32;
     int32_t sum = 0;
     for (size_t j = 0; j < d; j++) {
-        qq->q8[j] = clamp_code(q[j] / qq->sq);
-        sum += qq->q8[j];
+        q8[j] = clamp_code(q[j] / qq->sq);
+        sum += q8[j];
     }
     qq->offset = 128 * sum;
     return true;
@@ -369,18 +356,19 @@ weft_err weft_index_int8_search(const weft_index_codes *c, const float *e, const
     if (!query8_init(&qq, q, c->d, &is_finite))
         return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory for a query");
     if (!is_finite) {
-        free(qq.q8);
+        free(qq.q32);
         *n_out = exact_filtered(e, c->n, c->d, q, k, f, id, score);
         return WEFT_OK;
     }
     struct cands cand;
     weft_err rc = cands_init(&cand, k, oversample, err);
     if (rc == WEFT_OK) {
-        scan_codes(c->code, c->scale, c->n, c->d, &qq, NULL, 0, f, &cand.t);
+        struct scan_range all = { .p0 = 0, .p1 = c->n };
+        scan_codes(c->code, c->scale, c->d, &qq, &all, f, &cand.t);
         *n_out = rescore(&cand.t, e, c->d, q, k, id, score);
         cands_fini(&cand);
     }
-    free(qq.q8);
+    free(qq.q32);
     return rc;
 }
 
@@ -563,7 +551,7 @@ weft_err weft_index_ivf_build(const float *e, size_t n, size_t d, size_t n_lists
     out->centroid = weft_alloc_array(nl, da * sizeof *out->centroid);
     out->list_off = weft_alloc_array(nl + 1, sizeof *out->list_off);
     out->row_id = weft_alloc_array(n, sizeof *out->row_id);
-    out->code = weft_alloc_array(n, d ? d : 1);
+    out->code = weft_alloc_array(weft_index_code_bytes(n, d ? d : 1), 1);
     out->scale = weft_alloc_array(n, sizeof *out->scale);
     if (!out->centroid || !out->list_off || !out->row_id || !out->code
         || !out->scale) {
@@ -575,7 +563,7 @@ weft_err weft_index_ivf_build(const float *e, size_t n, size_t d, size_t n_lists
         double s = 0.0;
         for (size_t j = 0; j < da; j++)
             s += (double)ca[l * da + j] * ca[l * da + j];
-        out->centroid[l * da + d] = (float)(-0.5 * s);
+        out->centroid[l * da + d] = (float)(max2 > 0.0 ? -0.5 * s / sqrt(max2) : 0.0);
     }
     /* Lists in order, rows in increasing id within each (a counting sort). */
     memset(out->list_off, 0, (nl + 1) * sizeof *out->list_off);
@@ -588,8 +576,7 @@ weft_err weft_index_ivf_build(const float *e, size_t n, size_t d, size_t n_lists
     for (size_t l = nl; l > 0; l--)
         out->list_off[l] = out->list_off[l - 1];
     out->list_off[0] = 0;
-    for (size_t p = 0; p < n; p++)
-        encode_row(e + (size_t)out->row_id[p] * d, d, out->code + p * d, out->scale + p);
+    encode_rows(e, n, d, out->row_id, out->code, out->scale);
     out->ivf = (weft_index_ivf){
         .n = n, .d = d, .n_lists = nl, .centroid = out->centroid, .list_off = out->list_off, .row_id = out->row_id,
         .codes = { .n = n, .d = d, .code = out->code, .scale = out->scale },
@@ -619,7 +606,7 @@ weft_err weft_index_ivf_search(const weft_index_ivf *ix, const float *e, const f
     if (!query8_init(&qq, q, d, &is_finite))
         return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory for a query");
     if (!is_finite) {
-        free(qq.q8);
+        free(qq.q32);
         *n_out = exact_filtered(e, ix->n, d, q, k, f, id, score);
         return WEFT_OK;
     }
@@ -635,12 +622,16 @@ weft_err weft_index_ivf_search(const weft_index_ivf *ix, const float *e, const f
     if ((rc = cands_init(&cand, k, oversample, err)) != WEFT_OK)
         goto done;
     memcpy(qa, q, d * sizeof *qa);
-    qa[d] = 1.0f;
+    double q2 = 0.0;
+    for (size_t j = 0; j < d; j++)
+        q2 += (double)q[j] * q[j];
+    qa[d] = (float)sqrt(q2);
     size_t n_best = weft_topk_scan(ix->centroid, ix->n_lists, d + 1, qa, np, NULL, best, best_s);
     for (size_t b = 0; b < n_best; b++) {
-        uint64_t o0 = ix->list_off[best[b]], o1 = ix->list_off[best[b] + 1];
-        scan_codes(ix->codes.code + o0 * d, ix->codes.scale + o0, (size_t)(o1 - o0), d, &qq,
-                   ix->row_id + o0, 0, f, &cand.t);
+        struct scan_range list = { .p0 = (size_t)ix->list_off[best[b]],
+                                   .p1 = (size_t)ix->list_off[best[b] + 1],
+                                   .row_id = ix->row_id };
+        scan_codes(ix->codes.code, ix->codes.scale, d, &qq, &list, f, &cand.t);
     }
     *n_out = rescore(&cand.t, e, d, q, k, id, score);
 done:
@@ -648,6 +639,6 @@ done:
     free(qa);
     free(best_s);
     free(best);
-    free(qq.q8);
+    free(qq.q32);
     return rc;
 }

@@ -165,7 +165,7 @@ weft_err weft_link_index_build(const weft_link_model *m, const weft_link_index_s
     out->n_probes = p.n;
     double t0 = seconds_now(), tuning = 0.0;
     if (s->kind == WEFT_LINK_INDEX_INT8) {
-        out->code = weft_alloc_array(n, d ? d : 1);
+        out->code = weft_alloc_array(weft_index_code_bytes(n, d), 1);
         out->scale = weft_alloc_array(n, sizeof *out->scale);
         if (!out->code || !out->scale) {
             rc = weft_error_set(err, WEFT_ERR_NOMEM, "out of memory for an int8 index");
@@ -173,7 +173,7 @@ weft_err weft_link_index_build(const weft_link_model *m, const weft_link_index_s
         }
         weft_index_encode(m->entity, n, d, out->code, out->scale);
         out->build_seconds = seconds_now() - t0;
-        out->bytes = n * d + n * sizeof *out->scale;
+        out->bytes = weft_index_code_bytes(n, d) + n * sizeof *out->scale;
         rc = measure(out, m, &p, &out->recall, err);
     } else {
         rc = weft_index_ivf_build(m->entity, n, d, s->n_lists, s->iters ? s->iters : 10, s->seed,
@@ -191,7 +191,8 @@ weft_err weft_link_index_build(const weft_link_model *m, const weft_link_index_s
         out->build_seconds = (t1 - t0) + tuning;
         size_t nl = out->ivf.ivf.n_lists;
         out->bytes = nl * (d + 1) * sizeof(float) + (nl + 1) * sizeof(uint64_t)
-                     + n * (sizeof(uint32_t) + d + sizeof(float));
+                     + n * (sizeof(uint32_t) + sizeof(float))
+                     + weft_index_code_bytes(n, d);
     }
 done:
     probes_fini(&p);
@@ -202,8 +203,9 @@ done:
 
 json_t *weft_link_index_json(const weft_link_index *ix)
 {
-    json_t *o = json_pack("{s:s, s:I, s:f, s:f, s:I, s:f, s:I}", "kind",
-                          weft_link_index_kind_name(ix->kind), "oversample",
+    json_t *o = json_pack("{s:s, s:s, s:I, s:f, s:f, s:I, s:f, s:I}", "kind",
+                          weft_link_index_kind_name(ix->kind), "code_layout",
+                          WEFT_INDEX_CODE_LAYOUT, "oversample",
                           (json_int_t)ix->oversample, "recall_at_10", ix->recall, "recall_floor",
                           ix->recall_floor, "probe_queries", (json_int_t)ix->n_probes,
                           "build_seconds", ix->build_seconds, "bytes", (json_int_t)ix->bytes);
@@ -224,7 +226,8 @@ weft_err weft_link_index_put(weft_store_writer *w, json_t *manifest, const weft_
     json_t *link = json_object_get(manifest, "link"), *rec = weft_link_index_json(ix);
     if (!json_is_object(link) || !rec || json_object_set_new(link, "index", rec))
         return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory writing the manifest");
-    size_t n = ix->n, d = ix->d, code_shape[2] = { n, d }, row_shape[1] = { n };
+    size_t n = ix->n, d = ix->d, row_shape[1] = { n };
+    size_t code_shape[2] = { weft_index_blocks(n), weft_index_block_bytes(d) };
     bool is_ivf = ix->kind == WEFT_LINK_INDEX_IVF;
     const weft_index_ivf *v = &ix->ivf.ivf;
     weft_err rc;
@@ -274,12 +277,16 @@ weft_err weft_link_index_view_of(const weft_snapshot *snap, const weft_link_view
         || oversample < 1 || oversample > 1000)
         return weft_error_set(err, WEFT_ERR_CORRUPT, "the manifest's link index record is "
                               "malformed");
-    if (kind == WEFT_LINK_INDEX_EXACT)
+    /* An index of another code layout (an earlier weft's rows one after another) is not
+     * read: the snapshot is served by the exact scan, as if it held none. */
+    const char *layout = json_string_value(json_object_get(rec, "code_layout"));
+    if (kind == WEFT_LINK_INDEX_EXACT || !layout || strcmp(layout, WEFT_INDEX_CODE_LAYOUT))
         return WEFT_OK;
     size_t n = v->n_nodes, d = v->dim;
     weft_blob code, scale;
     weft_err rc;
-    if ((rc = need(snap, "index.code", WEFT_DTYPE_U8, n, d ? d : 0, &code, err))
+    if ((rc = need(snap, "index.code", WEFT_DTYPE_U8, weft_index_blocks(n),
+                   weft_index_block_bytes(d), &code, err))
         || (rc = need(snap, "index.scale", WEFT_DTYPE_F32, n, 0, &scale, err)))
         return rc;
     weft_index_codes codes = { .n = n, .d = d, .code = code.data, .scale = scale.data };

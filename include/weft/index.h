@@ -33,18 +33,64 @@ typedef struct weft_index_filter {
     uint32_t type;                  /**< the type kept when type_of is set */
 } weft_index_filter;
 
-/** Codes of the rows: code[i][j] + 128 stored as a byte (offset binary), so that the byte
- *  times a signed query byte is what AVX-512 VNNI multiplies. */
+/** The codes' layout: rows in blocks of WEFT_INDEX_BLOCK_ROWS, each block as groups of
+ *  WEFT_INDEX_GROUP consecutive values, a group holding those values of every row of the
+ *  block side by side (64 bytes), so that one AVX-512 VNNI product adds four values of 16
+ *  rows at once and a block's 16 sums need no reduction across lanes. Value j of row i is
+ *  at weft_index_code_at(d, i, j); the padding (rows past n in the last block, values past
+ *  d in the last group) holds 128, the code of zero. */
+#define WEFT_INDEX_BLOCK_ROWS 16
+#define WEFT_INDEX_GROUP 4
+
+/** Name of this layout in a snapshot's manifest ("link"."index"."code_layout"). */
+#define WEFT_INDEX_CODE_LAYOUT "blocks16x4"
+
+/** Groups of a row of @p d values. */
+static inline size_t weft_index_groups(size_t d)
+{
+    return (d + WEFT_INDEX_GROUP - 1) / WEFT_INDEX_GROUP;
+}
+
+/** Blocks of @p n rows. */
+static inline size_t weft_index_blocks(size_t n)
+{
+    return (n + WEFT_INDEX_BLOCK_ROWS - 1) / WEFT_INDEX_BLOCK_ROWS;
+}
+
+/** Bytes of one block of rows of @p d values. */
+static inline size_t weft_index_block_bytes(size_t d)
+{
+    return weft_index_groups(d) * WEFT_INDEX_GROUP * WEFT_INDEX_BLOCK_ROWS;
+}
+
+/** Bytes of the codes of @p n rows of @p d values, padding included. */
+static inline size_t weft_index_code_bytes(size_t n, size_t d)
+{
+    return weft_index_blocks(n) * weft_index_block_bytes(d);
+}
+
+/** Where value @p j of row @p i lies in the codes of rows of @p d values. */
+static inline size_t weft_index_code_at(size_t d, size_t i, size_t j)
+{
+    return (i / WEFT_INDEX_BLOCK_ROWS) * weft_index_block_bytes(d)
+           + (j / WEFT_INDEX_GROUP) * (WEFT_INDEX_GROUP * WEFT_INDEX_BLOCK_ROWS)
+           + (i % WEFT_INDEX_BLOCK_ROWS) * WEFT_INDEX_GROUP + j % WEFT_INDEX_GROUP;
+}
+
+/** Codes of the rows: code + 128 stored as a byte (offset binary), so that the byte times a
+ *  signed query byte is what AVX-512 VNNI multiplies. */
 typedef struct weft_index_codes {
     size_t n, d;
-    const uint8_t *code;            /**< (n, d): round(x / scale) + 128, in [1, 255] */
+    const uint8_t *code;            /**< weft_index_code_bytes(n, d), in the layout above:
+                                         round(x / scale) + 128, in [1, 255] */
     const float *scale;             /**< (n): max |x_j| / 127, or 0 for a zero row */
 } weft_index_codes;
 
 /**
- * Codes of @p e (n x d) into @p code (n x d bytes) and @p scale (n floats). A row with a
- * non-finite value gets scale NaN and is never a candidate of the index paths (a broken
- * model; /v1/health reports such rows).
+ * Codes of @p e (n x d) into @p code (weft_index_code_bytes(n, d) bytes, in the blocked
+ * layout, padding included) and @p scale (n floats). A row with a non-finite value gets
+ * scale NaN and is never a candidate of the index paths (a broken model; /v1/health reports
+ * such rows).
  */
 void weft_index_encode(const float *e, size_t n, size_t d, uint8_t *code, float *scale);
 
@@ -56,8 +102,8 @@ void weft_index_encode(const float *e, size_t n, size_t d, uint8_t *code, float 
  * @param id, score  k entries each, best first, scores as weft_kernel_dot gives them
  * @param n_out  entries written
  * @return WEFT_OK or WEFT_ERR_NOMEM (candidate buffers of k x oversample entries)
- * Threads: reentrant. Cost: one pass over n x d bytes; with AVX-512 VNNI 64 products per
- * instruction.
+ * Threads: reentrant. Cost: one pass over the codes (n x d bytes and the padding); with
+ * AVX-512 VNNI 64 products per instruction.
  */
 weft_err weft_index_int8_search(const weft_index_codes *c, const float *e, const float *q,
                                 size_t k, size_t oversample, const weft_index_filter *f,
@@ -79,11 +125,15 @@ weft_err weft_index_kmeans(const float *x, size_t n, size_t d, size_t k, size_t 
 typedef struct weft_index_ivf {
     size_t n, d, n_lists;
     /** (n_lists, d + 1): each centroid's first d coordinates, then -|augmented centroid|^2
-     *  / 2, so that its inner product with (q, 1) ranks the lists for query q */
+     *  / 2M (M the largest row norm), so that its inner product with (q, |q|) ranks the
+     *  lists for query q: the nearest centroids to the query scaled to norm M, in the
+     *  augmented space where every row has norm M (the order does not change with |q|, as
+     *  the order of the rows does not) */
     const float *centroid;
     const uint64_t *list_off;       /**< (n_lists + 1): list l is rows list_off[l] .. [l + 1] */
     const uint32_t *row_id;         /**< (n): the row of e at each position of the lists */
-    weft_index_codes codes;         /**< (n, d): the codes in list order */
+    weft_index_codes codes;         /**< the codes in list order (row p of the codes is row
+                                         row_id[p] of e); a block may span two lists */
 } weft_index_ivf;
 
 /** What weft_index_ivf_build allocates; free with weft_index_ivf_fini. */
@@ -111,7 +161,7 @@ void weft_index_ivf_fini(weft_index_ivf_arrays *a);
 
 /**
  * The best @p k rows of @p e for @p q through @p ix: the @p nprobe lists whose centroids
- * score best with (q, 1) (an exact scan, weft_topk_scan), their codes scanned, the best k x @p oversample that
+ * score best with (q, |q|) (an exact scan, weft_topk_scan), their codes scanned, the best k x @p oversample that
  * pass @p f re-scored exactly. Same outputs and contract as weft_index_int8_search.
  */
 weft_err weft_index_ivf_search(const weft_index_ivf *ix, const float *e, const float *q,

@@ -62,7 +62,7 @@ typedef struct weft_link_index {
     double build_seconds;    /**< building and tuning, without the measuring */
     size_t bytes;            /**< what its blobs add to the snapshot */
     double recall_floor;
-    uint8_t *code;           /**< int8: (n, d) in row order */
+    uint8_t *code;           /**< int8: the rows' codes in row order (include/weft/index.h) */
     float *scale;
     weft_index_ivf_arrays ivf;
 } weft_link_index;
@@ -79,7 +79,7 @@ weft_err weft_link_index_build(const weft_link_model *m, const weft_link_index_s
 void weft_link_index_fini(weft_link_index *ix);
 
 /**
- * The manifest record of @p ix: {"kind", "oversample", ["lists", "nprobe",] "recall_at_10",
+ * The manifest record of @p ix: {"kind", "code_layout", "oversample", ["lists", "nprobe",] "recall_at_10",
  * "recall_floor", "probe_queries", "build_seconds", "bytes"}. A new reference, or NULL when
  * out of memory.
  */

@@ -58,7 +58,7 @@ struct codes {
 static struct codes encode(const float *e, size_t n, size_t d)
 {
     struct codes c;
-    c.code = malloc(n * d > 0 ? n * d : 1);
+    c.code = malloc(n && d ? weft_index_code_bytes(n, d) : 1);
     c.scale = malloc((n ? n : 1) * sizeof *c.scale);
     cr_assert(c.code && c.scale);
     weft_index_encode(e, n, d, c.code, c.scale);
@@ -102,12 +102,17 @@ Test(index, codes_reconstruct_within_half_a_step)
             m = fmaxf(m, fabsf(e[i * D + j]));
         cr_assert_float_eq(c.scale[i], m / 127.0f, 1e-9f);
         for (size_t j = 0; j < D; j++) {
-            int code = (int)c.code[i * D + j] - 128;
+            int code = (int)c.code[weft_index_code_at(D, i, j)] - 128;
             cr_assert(code >= -127 && code <= 127);
             cr_assert_leq(fabsf(code * c.scale[i] - e[i * D + j]), 0.5f * c.scale[i] * 1.0001f);
         }
     }
-    cr_assert_eq(c.code[5 * D + 2], 128);
+    cr_assert_eq(c.code[weft_index_code_at(D, 5, 2)], 128);
+    /* the padding: rows 50..63 of the last block, values 37..39 of each row's last group */
+    for (size_t j = 0; j < 40; j++)
+        cr_assert_eq(c.code[weft_index_code_at(D, 55, j)], 128);
+    for (size_t j = D; j < 40; j++)
+        cr_assert_eq(c.code[weft_index_code_at(D, 3, j)], 128);
     codes_free(&c);
     free(e);
 }
@@ -362,6 +367,27 @@ Test(index, native_and_portable_scans_agree)
             for (size_t i = 0; i < na; i++)
                 cr_assert(a[i] == b[i] && as[i] == bs[i], "d = %zu query %zu rank %zu", d, j, i);
         }
+        /* lists of a clustered index begin and end inside blocks of 16 */
+        weft_index_ivf_arrays ivf;
+        weft_error err;
+        cr_assert_eq(weft_index_ivf_build(e, n, d, 37, 5, 3, 1, &ivf, &err), WEFT_OK);
+        for (size_t j = 0; j < 3; j++) {
+            uint32_t a[K], b[K];
+            float as[K], bs[K];
+            size_t na = 0, nb = 0;
+            weft_index_allow_native(true);
+            cr_assert_eq(weft_index_ivf_search(&ivf.ivf, e, q + j * d, K, 5, 1, NULL, a, as,
+                                               &na, &err), WEFT_OK);
+            weft_index_allow_native(false);
+            cr_assert_eq(weft_index_ivf_search(&ivf.ivf, e, q + j * d, K, 5, 1, NULL, b, bs,
+                                               &nb, &err), WEFT_OK);
+            weft_index_allow_native(true);
+            cr_assert_eq(na, nb);
+            for (size_t i = 0; i < na; i++)
+                cr_assert(a[i] == b[i] && as[i] == bs[i], "ivf d = %zu query %zu rank %zu", d, j,
+                          i);
+        }
+        weft_index_ivf_fini(&ivf);
         codes_free(&c);
         free(e);
         free(q);
