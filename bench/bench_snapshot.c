@@ -3,7 +3,8 @@
  * ../shared/bench/ref_service.py answer from the same numbers. Node i is named "i"; the
  * known links are a chain i -> i+1 (a snapshot needs a graph; each query then excludes at
  * most one known target besides itself). With INDEX (int8 or ivf), the snapshot carries that
- * index with weft train's defaults (include/weft/link_index.h).
+ * index with weft train's defaults (include/weft/link_index.h). Prints the version, the
+ * shape and the index's manifest record (recall@10, lists, nprobe, bytes) as one JSON line.
  * usage: bench_snapshot EMB.npy STORE_DIR [INDEX] */
 #include <stdio.h>
 #include <stdlib.h>
@@ -90,9 +91,13 @@ int main(int argc, char **argv)
         weft_link_index_put(w, manifest, &index, &err) ||
         weft_store_writer_commit(w, manifest, true, NULL, &err))
         die("store", &err);
+    json_t *rec = index.kind == WEFT_LINK_INDEX_EXACT ? json_null() : weft_link_index_json(&index);
+    char *rec_text = rec ? json_dumps(rec, JSON_COMPACT | JSON_ENCODE_ANY) : NULL;
+    printf("{\"version\": %llu, \"nodes\": %zu, \"dim\": %zu, \"index\": %s}\n",
+           (unsigned long long)version, n, d, rec_text ? rec_text : "null");
+    free(rec_text);
+    json_decref(rec);
     weft_link_index_fini(&index);
-    printf("{\"version\": %llu, \"nodes\": %zu, \"dim\": %zu}\n", (unsigned long long)version, n,
-           d);
     json_decref(manifest);
     weft_store_close(st);
     weft_graph_free(g);

@@ -13,8 +13,10 @@
 #include <sys/stat.h>
 #include <time.h>
 
+#include "weft/index.h"
 #include "weft/names.h"
 #include "weft/store.h"
+#include "weft/topk.h"
 
 /* How often the loader looks at the input files' sizes and times for the coverage check. */
 #define COVERAGE_CHECK_MS 5000
@@ -201,9 +203,51 @@ static void drift_from_store(http_live *live)
     amend(live, &now.checks);
 }
 
-/* Make @p m live: measure it (blobs, norms, drift from the model it replaces) before the
- * swap, so that requests keep the old model meanwhile and the first requests on the new one
- * share no core with the measuring. */
+static char *inputs_copy(http_live *live, unsigned *gen, bool *is_short);
+static void cover(http_live *live, http_model *m, char *buf, unsigned gen);
+
+/* Reads of the new matrix just before the swap (see warm): WARM_PASSES scans, fewer when
+ * they would read more than WARM_BYTES (at least one). */
+enum { WARM_PASSES = 32 };
+#define WARM_BYTES ((size_t)1 << 30)
+
+/* Read what a link query reads, as a query reads it, just before the swap: the matrix
+ * through the scan kernel, and the index's codes through the index's. The blobs are mapped
+ * by then (the checks read every one), but the checks and the drift leave the caches
+ * holding whatever they read last, the old matrix among it; after this they hold the new
+ * rows much as after the queries that follow a swap (bench/swap_first_query.py measures
+ * it). Best effort: out of memory, no warming. */
+static void warm(const http_model *m)
+{
+    const weft_link_view *v = &m->links;
+    if (!m->has_links || v->n_nodes == 0 || v->dim == 0)
+        return;
+    enum { K = 10 };
+    float *q = malloc(v->dim * sizeof *q), score[K];
+    uint32_t id[K];
+    if (!q)
+        return;
+    size_t bytes = v->n_nodes * v->dim * sizeof(float);
+    size_t passes = WARM_BYTES / bytes < WARM_PASSES ? WARM_BYTES / bytes : WARM_PASSES;
+    weft_model_query(&v->model, 0, 0, false, q);
+    for (size_t pass = 0; pass < (passes ? passes : 1); pass++) {
+        weft_topk_scan(v->entity, v->n_nodes, v->dim, q, K, NULL, id, score);
+        weft_error err;
+        size_t n = 0;
+        const weft_link_index_view *ix = &m->index;
+        if (ix->kind == WEFT_LINK_INDEX_INT8)
+            weft_index_int8_search(&ix->codes, v->entity, q, K, ix->oversample, NULL, id, score,
+                                   &n, &err);
+        else if (ix->kind == WEFT_LINK_INDEX_IVF)
+            weft_index_ivf_search(&ix->ivf, v->entity, q, K, ix->nprobe, ix->oversample, NULL,
+                                  id, score, &n, &err);
+    }
+    free(q);
+}
+
+/* Make @p m live: measure it (blobs, norms, drift from the model it replaces, coverage of
+ * the inputs) and warm it before the swap, so that requests keep the old model meanwhile
+ * and the first requests on the new one share no core with the measuring. */
 static void make_live(http_live *live, http_model *m, uint64_t previous)
 {
     weft_error err;
@@ -214,6 +258,13 @@ static void make_live(http_live *live, http_model *m, uint64_t previous)
     const http_model *held = live->current;   /* only the loader changes it */
     if (held)
         http_checks_drift(m, held);
+    unsigned gen;
+    bool is_short;
+    char *buf = inputs_copy(live, &gen, &is_short);
+    if (!is_short)   /* else watch_inputs measures it at the next poll */
+        cover(live, m, buf, gen);
+    free(buf);
+    warm(m);
     m->checks.loaded = unix_now();
     publish(live, m);
     atomic_fetch_add(&live->n_swaps, 1);
@@ -441,7 +492,7 @@ static void run_jobs(http_live *live)
 
 /* The files to read: --inputs, else the edge files the live manifest names (roles edges,
  * valid, test) that can be read from here. Paths point into @p buf or the manifest. */
-static size_t input_paths(const http_live *live, char *buf, const char **paths, size_t max)
+static size_t input_paths(const http_model *m, char *buf, const char **paths, size_t max)
 {
     size_t n = 0;
     if (buf) {
@@ -451,7 +502,7 @@ static size_t input_paths(const http_live *live, char *buf, const char **paths, 
                 paths[n++] = p;
         return n;
     }
-    const json_t *inputs = json_object_get(weft_snapshot_manifest(live->current->snap), "inputs");
+    const json_t *inputs = json_object_get(weft_snapshot_manifest(m->snap), "inputs");
     size_t i;
     const json_t *in;
     json_array_foreach(inputs, i, in) {
@@ -489,15 +540,39 @@ static uint64_t files_signature(const char *const *paths, size_t n)
 
 /* Measure coverage for a newly live version, for new --inputs, and when an input file
  * changed (looked at every COVERAGE_CHECK_MS); publish the figures with amend(). */
+/* A copy of --inputs (NULL: none given, or *is_short when out of memory) and its
+ * generation. */
+static char *inputs_copy(http_live *live, unsigned *gen, bool *is_short)
+{
+    pthread_mutex_lock(&live->lock);
+    *gen = live->inputs_gen;
+    char *buf = live->inputs ? strdup(live->inputs) : NULL;
+    *is_short = live->inputs && !buf;
+    pthread_mutex_unlock(&live->lock);
+    return buf;
+}
+
+/* Measure @p m's coverage of the input files (--inputs @p buf, else the manifest's) and
+ * keep their signature, so that watch_inputs notices when they change. Loader only. */
+static void cover(http_live *live, http_model *m, char *buf, unsigned gen)
+{
+    clock_gettime(CLOCK_MONOTONIC, &live->coverage_at);
+    const char *paths[64];
+    size_t n = input_paths(m, buf, paths, sizeof paths / sizeof paths[0]);
+    http_checks_coverage(m, paths, n);
+    live->coverage_sig = files_signature(paths, n);
+    live->coverage_gen = gen;
+}
+
+/* Measure the coverage again when --inputs changed or, every COVERAGE_CHECK_MS, when the
+ * files did (their sizes and times). */
 static void watch_inputs(http_live *live)
 {
     if (!live->current)
         return;
-    pthread_mutex_lock(&live->lock);
-    unsigned gen = live->inputs_gen;
-    char *buf = live->inputs ? strdup(live->inputs) : NULL;
-    bool is_short = live->inputs && !buf;
-    pthread_mutex_unlock(&live->lock);
+    unsigned gen;
+    bool is_short;
+    char *buf = inputs_copy(live, &gen, &is_short);
     bool is_due = live->current->checks.coverage == HTTP_MEASURE_PENDING
                   || gen != live->coverage_gen;
     if (is_short || (!is_due && ms_since(&live->coverage_at) < COVERAGE_CHECK_MS)) {
@@ -506,14 +581,11 @@ static void watch_inputs(http_live *live)
     }
     clock_gettime(CLOCK_MONOTONIC, &live->coverage_at);
     const char *paths[64];
-    size_t n = input_paths(live, buf, paths, sizeof paths / sizeof paths[0]);
-    uint64_t sig = files_signature(paths, n);
-    if (is_due || sig != live->coverage_sig) {
+    size_t n = input_paths(live->current, buf, paths, sizeof paths / sizeof paths[0]);
+    if (is_due || files_signature(paths, n) != live->coverage_sig) {
         http_model now = *live->current;
-        http_checks_coverage(&now, paths, n);
+        cover(live, &now, buf, gen);
         amend(live, &now.checks);
-        live->coverage_sig = sig;
-        live->coverage_gen = gen;
     }
     free(buf);
 }
