@@ -87,6 +87,22 @@ swap=$(taskset -c 0 /usr/bin/python3 "$TOP/bench/swap_first_query.py" "$WPORT" "
 echo "$swap" >>"$OUT/raw.jsonl"
 kill $WPID; wait $WPID 2>/dev/null || true
 
+# The same queries through each index of the same matrix (weft train's defaults: int8 with
+# oversample 4, ivf with nprobe tuned on the probe set); the manifest's record beside them.
+for kind in int8 ivf; do
+    rm -rf "$OUT/service-store-$kind"
+    "$OUT/bench_snapshot" "$OUT/emb.npy" "$OUT/service-store-$kind" "$kind" \
+        >"$OUT/service-index-$kind.json"
+    WPORT=$(port)
+    taskset -c 1 "$BUILD/weft" serve --store "$OUT/service-store-$kind" \
+        --listen "127.0.0.1:$WPORT" --access-log off >"$OUT/weft-serve-$kind.log" 2>&1 &
+    WPID=$!
+    wait_up "http://127.0.0.1:$WPORT/v1/links/predict?source=1&k=10"
+    eval "i16_$kind=\$(run_wrk \"http://127.0.0.1:\$WPORT\" \"\$OUT/weft_top.lua\" 16)"
+    eval "i64_$kind=\$(run_wrk \"http://127.0.0.1:\$WPORT\" \"\$OUT/weft_top.lua\" 64)"
+    kill $WPID; wait $WPID 2>/dev/null || true
+done
+
 have_ref=0
 /usr/bin/python3 -c 'import flask' 2>/dev/null && [ -f "$REFS/ref_service.py" ] && have_ref=1
 if [ "$have_ref" -eq 1 ]; then
@@ -118,6 +134,22 @@ row() {   # row CONNS WEFT REF
     echo "|---|---|---|---|---|---|---|---|"
     row 16 "$w16" "${r16:-}"
     row 64 "$w64" "${r64:-}"
+    echo
+    echo "The same queries through an index of the same matrix (weft train's defaults; its"
+    echo "manifest record: recall@10 on 200 probe queries against the exact scan, memory):"
+    echo
+    echo "| index | connections | weft req/s | weft p99 ms | weft non-2xx / socket errors | reference req/s | req/s ratio (goal) | recall@10 | index MiB |"
+    echo "|---|---|---|---|---|---|---|---|---|"
+    for kind in int8 ivf; do
+        rec=$(/usr/bin/python3 -c 'import json,sys; r=json.load(open(sys.argv[1]))["index"]; print("%.4f %.1f %s" % (r["recall_at_10"], r["bytes"] / 2**20, ("%d&nbsp;lists,&nbsp;nprobe&nbsp;%d" % (r["lists"], r["nprobe"])) if "lists" in r else "oversample&nbsp;%d" % r["oversample"]))' "$OUT/service-index-$kind.json")
+        for c in 16 64; do
+            eval "res=\$i${c}_$kind"
+            ref=$([ "$c" = 16 ] && echo "${r16:-}" || echo "${r64:-}")
+            set -- $res ${ref:-- - - -} $rec
+            ratio=$([ "$5" = "-" ] && echo "-" || awk -v a="$1" -v b="$5" 'BEGIN{printf "%.2f", a/b}')
+            echo "| $kind (${11}) | $c | $1 | $2 | $3 / $4 | $5 | $ratio (>= 20) | $9 | ${10} |"
+        done
+    done
     echo
     /usr/bin/python3 - "$swap" <<'PY'
 import json, sys

@@ -344,31 +344,71 @@ static void cands_fini(struct cands *c)
     free(c->score);
 }
 
+/* Bytes of codes per chunk of a shared scan: each chunk is scanned for every query in turn
+ * while it sits in the core's L2 cache. */
+enum { CHUNK_BYTES = 256 << 10 };
+
+/* One query of weft_index_int8_search_many while it runs. */
+struct pending {
+    struct query8 qq;
+    struct cands cand;
+    bool is_scanned;     /* false: answered without the codes (k 0, a non-finite query) */
+};
+
+weft_err weft_index_int8_search_many(const weft_index_codes *c, const float *e,
+                                     size_t oversample, weft_index_query *qs, size_t m,
+                                     weft_error *err)
+{
+    for (size_t i = 0; i < m; i++)
+        qs[i].n_out = 0;
+    if (c->n == 0 || m == 0)
+        return WEFT_OK;
+    struct pending *p = calloc(m, sizeof *p);
+    if (!p)
+        return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory for %zu queries", m);
+    weft_err rc = WEFT_OK;
+    for (size_t i = 0; i < m && rc == WEFT_OK; i++) {
+        weft_index_query *x = &qs[i];
+        bool is_finite;
+        if (x->k == 0)
+            continue;
+        if (!query8_init(&p[i].qq, x->q, c->d, &is_finite))
+            rc = weft_error_set(err, WEFT_ERR_NOMEM, "out of memory for a query");
+        else if (!is_finite)
+            x->n_out = exact_filtered(e, c->n, c->d, x->q, x->k, x->f, x->id, x->score);
+        else if ((rc = cands_init(&p[i].cand, x->k, oversample, err)) == WEFT_OK)
+            p[i].is_scanned = true;
+    }
+    if (rc == WEFT_OK) {
+        size_t rows = CHUNK_BYTES / weft_index_block_bytes(c->d) * BLOCK;
+        rows = rows ? rows : BLOCK;
+        for (size_t p0 = 0; p0 < c->n; p0 += rows) {
+            struct scan_range r = { .p0 = p0, .p1 = c->n - p0 < rows ? c->n : p0 + rows };
+            for (size_t i = 0; i < m; i++)
+                if (p[i].is_scanned)
+                    scan_codes(c->code, c->scale, c->d, &p[i].qq, &r, qs[i].f, &p[i].cand.t);
+        }
+        for (size_t i = 0; i < m; i++)
+            if (p[i].is_scanned)
+                qs[i].n_out = rescore(&p[i].cand.t, e, c->d, qs[i].q, qs[i].k, qs[i].id,
+                                      qs[i].score);
+    }
+    for (size_t i = 0; i < m; i++) {
+        free(p[i].qq.q32);
+        if (p[i].is_scanned)
+            cands_fini(&p[i].cand);
+    }
+    free(p);
+    return rc;
+}
+
 weft_err weft_index_int8_search(const weft_index_codes *c, const float *e, const float *q,
                                 size_t k, size_t oversample, const weft_index_filter *f,
                                 uint32_t *id, float *score, size_t *n_out, weft_error *err)
 {
-    *n_out = 0;
-    if (k == 0 || c->n == 0)
-        return WEFT_OK;
-    struct query8 qq;
-    bool is_finite;
-    if (!query8_init(&qq, q, c->d, &is_finite))
-        return weft_error_set(err, WEFT_ERR_NOMEM, "out of memory for a query");
-    if (!is_finite) {
-        free(qq.q32);
-        *n_out = exact_filtered(e, c->n, c->d, q, k, f, id, score);
-        return WEFT_OK;
-    }
-    struct cands cand;
-    weft_err rc = cands_init(&cand, k, oversample, err);
-    if (rc == WEFT_OK) {
-        struct scan_range all = { .p0 = 0, .p1 = c->n };
-        scan_codes(c->code, c->scale, c->d, &qq, &all, f, &cand.t);
-        *n_out = rescore(&cand.t, e, c->d, q, k, id, score);
-        cands_fini(&cand);
-    }
-    free(qq.q32);
+    weft_index_query x = { .q = q, .k = k, .f = f, .id = id, .score = score };
+    weft_err rc = weft_index_int8_search_many(c, e, oversample, &x, 1, err);
+    *n_out = x.n_out;
     return rc;
 }
 

@@ -588,4 +588,23 @@ void http_scan_watch(const http_metrics *m);
 size_t http_scan_topk(const float *e, size_t n, size_t d, const float *q, size_t k,
                       const weft_topk_exclude *ex, uint32_t *id, float *score);
 
+/**
+ * weft_index_int8_search() (include/weft/index.h) for a request thread, with the same
+ * result, answered together with the other requests waiting on the same codes: one pass
+ * (weft_index_int8_search_many) serves up to 64 of them. Same contract as http_scan_topk.
+ * @return WEFT_OK or WEFT_ERR_NOMEM
+ */
+weft_err http_scan_int8(const weft_index_codes *c, const float *e, size_t oversample,
+                        const float *q, size_t k, const weft_index_filter *f, uint32_t *id,
+                        float *score, size_t *n_out, weft_error *err);
+
+/**
+ * weft_index_ivf_search() for a request thread, with the same result, in the same queue as
+ * the other passes (oldest first), one search at a time: the lists differ from query to
+ * query, so there is no pass to share, but the queue keeps the waits fair under load.
+ */
+weft_err http_scan_ivf(const weft_index_ivf *ix, const float *e, size_t nprobe,
+                       size_t oversample, const float *q, size_t k, const weft_index_filter *f,
+                       uint32_t *id, float *score, size_t *n_out, weft_error *err);
+
 #endif

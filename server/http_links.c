@@ -282,10 +282,10 @@ static weft_err rank(const http_model *m, const struct predict_query *q, struct 
                                 .type = q->type };
         const weft_link_index_view *ix = &m->index;
         if (ix->kind == WEFT_LINK_INDEX_IVF)
-            return weft_index_ivf_search(&ix->ivf, v->entity, w->query, q->k, ix->nprobe,
-                                         ix->oversample, &f, w->id, w->score, n, err);
-        return weft_index_int8_search(&ix->codes, v->entity, w->query, q->k, ix->oversample,
-                                      &f, w->id, w->score, n, err);
+            return http_scan_ivf(&ix->ivf, v->entity, ix->nprobe, ix->oversample, w->query,
+                                 q->k, &f, w->id, w->score, n, err);
+        return http_scan_int8(&ix->codes, v->entity, ix->oversample, w->query, q->k, &f,
+                              w->id, w->score, n, err);
     }
     if (q->has_type)
         *n = scan_typed(v, m->types.of_node, q->type, w->query, q->k, &ex, w->id, w->score);

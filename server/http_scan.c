@@ -1,8 +1,9 @@
 /* Top-k scans shared between concurrent requests. A top-k query reads the whole embedding
- * matrix, so its cost is memory bandwidth (and, for many queries at once, arithmetic);
- * queries that arrive together are answered by one pass (weft_topk_scan_batch reads each
- * block of rows once for up to 64 queries) and get the same lists a scan of their own would
- * give. A request thread that finds no pass running leads one over everything waiting on the
+ * matrix (or the int8 index's codes), so its cost is memory bandwidth (and, for many queries
+ * at once, arithmetic); queries that arrive together are answered by one pass
+ * (weft_topk_scan_batch reads each block of rows once for up to 64 queries,
+ * weft_index_int8_search_many each chunk of codes) and get the same lists a scan of their
+ * own would give. A request thread that finds no pass running leads one over everything waiting on the
  * same matrix (after letting the requests at work join, see gather()); the others sleep, each
  * on its own condition variable, until their pass is done or, when a pass ends with requests
  * still queued, the oldest of them is woken to lead the next. At most `leaders` passes run at
@@ -16,6 +17,7 @@
 #include <time.h>
 
 #include "weft/alloc.h"
+#include "weft/index.h"
 #include "weft/topk.h"
 
 /* Most queries in one pass: what weft_topk_scan_batch reads a block for at once. */
@@ -25,6 +27,12 @@ struct scan_req {
     const float *e, *q;
     size_t n, d, k;
     const weft_topk_exclude *ex;
+    const weft_index_codes *codes;  /* an int8 search of these codes, or NULL */
+    const weft_index_ivf *ivf;      /* an ivf search of this index, or NULL */
+    size_t oversample, nprobe;
+    const weft_index_filter *f;     /* an index search's filter */
+    weft_err rc;                    /* an index search's outcome, and why it failed */
+    weft_error err;
     uint32_t *id;
     float *score;
     size_t count;
@@ -111,12 +119,49 @@ static bool space_fit(struct leader_space *sp, size_t d, size_t k)
     return true;
 }
 
-/* Answer @p batch (n requests on one matrix) with one pass, or one scan each when the
- * workspace cannot grow. Runs without the lock. */
+/* Answer @p batch (n int8 searches of the same codes) with one pass. */
+static void run_int8(struct scan_req **batch, size_t n)
+{
+    weft_index_query qs[MAX_BATCH];
+    for (size_t i = 0; i < n; i++)
+        qs[i] = (weft_index_query){ .q = batch[i]->q, .k = batch[i]->k, .f = batch[i]->f,
+                                    .id = batch[i]->id, .score = batch[i]->score };
+    weft_error err;
+    weft_error_clear(&err);
+    weft_err rc = weft_index_int8_search_many(batch[0]->codes, batch[0]->e,
+                                              batch[0]->oversample, qs, n, &err);
+    for (size_t i = 0; i < n; i++) {
+        batch[i]->rc = rc;
+        batch[i]->err = err;
+        batch[i]->count = rc == WEFT_OK ? qs[i].n_out : 0;
+    }
+}
+
+/* Answer @p batch (n ivf searches of the same index) one by one. */
+static void run_ivf(struct scan_req **batch, size_t n)
+{
+    for (size_t i = 0; i < n; i++) {
+        struct scan_req *r = batch[i];
+        weft_error_clear(&r->err);
+        r->rc = weft_index_ivf_search(r->ivf, r->e, r->q, r->k, r->nprobe, r->oversample, r->f,
+                                      r->id, r->score, &r->count, &r->err);
+    }
+}
+
+/* Answer @p batch (n requests on one matrix, or one index) with one pass, or one scan each
+ * when the workspace cannot grow. Runs without the lock. */
 static void run_batch(struct leader_space *sp, struct scan_req **batch, size_t n)
 {
     if (n == 0)
         return;
+    if (batch[0]->codes) {
+        run_int8(batch, n);
+        return;
+    }
+    if (batch[0]->ivf) {
+        run_ivf(batch, n);
+        return;
+    }
     size_t k = 0, d = batch[0]->d;
     for (size_t i = 0; i < n; i++)
         k = batch[i]->k > k ? batch[i]->k : k;
@@ -199,15 +244,24 @@ static void gather(void)
     }
 }
 
-/* Take up to MAX_BATCH queued requests on the oldest one's matrix out of the queue, oldest
- * first. Under the lock. */
+/* Whether @p a and @p b can share a pass: the same matrix, and the same index (or none). */
+static bool same_pass(const struct scan_req *a, const struct scan_req *b)
+{
+    const uint8_t *ca = a->codes ? a->codes->code : NULL, *cb = b->codes ? b->codes->code : NULL;
+    const float *ia = a->ivf ? a->ivf->centroid : NULL, *ib = b->ivf ? b->ivf->centroid : NULL;
+    return a->e == b->e && a->n == b->n && a->d == b->d && ca == cb && ia == ib
+           && a->oversample == b->oversample && a->nprobe == b->nprobe;
+}
+
+/* Take up to MAX_BATCH queued requests that can share the oldest one's pass out of the
+ * queue, oldest first. Under the lock. */
 static size_t take_batch(struct scan_req **batch)
 {
     struct scan_req **link = &sched.head, *first = sched.head;
     size_t nb = 0;
     while (*link && nb < MAX_BATCH) {
         struct scan_req *r = *link;
-        if (r->e == first->e && r->n == first->n && r->d == first->d) {
+        if (same_pass(r, first)) {
             r->is_taken = true;
             batch[nb++] = r;
             *link = r->next;
@@ -221,23 +275,19 @@ static size_t take_batch(struct scan_req **batch)
     return nb;
 }
 
-size_t http_scan_topk(const float *e, size_t n, size_t d, const float *q, size_t k,
-                      const weft_topk_exclude *ex, uint32_t *id, float *score)
+/* Queue @p me and return once its pass is done: led by this thread, or by another. */
+static void submit(struct scan_req *me)
 {
-    if (k == 0)
-        return 0;
-    struct scan_req me = { .e = e, .q = q, .n = n, .d = d, .k = k, .ex = ex, .id = id,
-                           .score = score };
-    pthread_cond_init(&me.wake, NULL);
+    pthread_cond_init(&me->wake, NULL);
     pthread_mutex_lock(&sched.lock);
-    *sched.tail = &me;
-    sched.tail = &me.next;
-    while (!me.is_done) {
-        if (me.is_taken || sched.n_leaders >= sched.max_leaders) {
-            pthread_cond_wait(&me.wake, &sched.lock);
+    *sched.tail = me;
+    sched.tail = &me->next;
+    while (!me->is_done) {
+        if (me->is_taken || sched.n_leaders >= sched.max_leaders) {
+            pthread_cond_wait(&me->wake, &sched.lock);
             continue;
         }
-        /* Lead: the oldest waiting request's matrix, everything waiting on it. */
+        /* Lead: the oldest waiting request's pass, everything waiting that can share it. */
         struct leader_space *sp = NULL;
         for (size_t i = 0; !sp && i < HTTP_SCAN_MAX_LEADERS; i++)
             if (!sched.space[i].is_busy)
@@ -262,6 +312,51 @@ size_t http_scan_topk(const float *e, size_t n, size_t d, const float *q, size_t
             pthread_cond_signal(&sched.head->wake);
     }
     pthread_mutex_unlock(&sched.lock);
-    pthread_cond_destroy(&me.wake);
+    pthread_cond_destroy(&me->wake);
+}
+
+/* submit() for an index search: its list's length into *@p n_out, its outcome. */
+static weft_err submit_index(struct scan_req *me, size_t *n_out, weft_error *err)
+{
+    submit(me);
+    *n_out = me->count;
+    if (me->rc != WEFT_OK && err)
+        *err = me->err;
+    return me->rc;
+}
+
+size_t http_scan_topk(const float *e, size_t n, size_t d, const float *q, size_t k,
+                      const weft_topk_exclude *ex, uint32_t *id, float *score)
+{
+    if (k == 0)
+        return 0;
+    struct scan_req me = { .e = e, .q = q, .n = n, .d = d, .k = k, .ex = ex, .id = id,
+                           .score = score };
+    submit(&me);
     return me.count;
+}
+
+weft_err http_scan_int8(const weft_index_codes *c, const float *e, size_t oversample,
+                        const float *q, size_t k, const weft_index_filter *f, uint32_t *id,
+                        float *score, size_t *n_out, weft_error *err)
+{
+    *n_out = 0;
+    if (k == 0 || c->n == 0)
+        return WEFT_OK;
+    struct scan_req me = { .e = e, .q = q, .n = c->n, .d = c->d, .k = k, .codes = c,
+                           .oversample = oversample, .f = f, .id = id, .score = score };
+    return submit_index(&me, n_out, err);
+}
+
+weft_err http_scan_ivf(const weft_index_ivf *ix, const float *e, size_t nprobe,
+                       size_t oversample, const float *q, size_t k, const weft_index_filter *f,
+                       uint32_t *id, float *score, size_t *n_out, weft_error *err)
+{
+    *n_out = 0;
+    if (k == 0 || ix->n == 0)
+        return WEFT_OK;
+    struct scan_req me = { .e = e, .q = q, .n = ix->n, .d = ix->d, .k = k, .ivf = ix,
+                           .nprobe = nprobe, .oversample = oversample, .f = f, .id = id,
+                           .score = score };
+    return submit_index(&me, n_out, err);
 }

@@ -109,6 +109,28 @@ weft_err weft_index_int8_search(const weft_index_codes *c, const float *e, const
                                 size_t k, size_t oversample, const weft_index_filter *f,
                                 uint32_t *id, float *score, size_t *n_out, weft_error *err);
 
+/** One query of weft_index_int8_search_many: its inputs, and its answer once it returns. */
+typedef struct weft_index_query {
+    const float *q;                 /**< (d) */
+    size_t k;
+    const weft_index_filter *f;     /**< may be NULL */
+    uint32_t *id;                   /**< (k) out, best first */
+    float *score;                   /**< (k) out */
+    size_t n_out;                   /**< out: entries written */
+} weft_index_query;
+
+/**
+ * weft_index_int8_search for @p m queries in one pass over the codes: each chunk of rows
+ * (about 256 KiB of codes) is scanned for every query while it is in cache, so that m
+ * queries read the codes from memory once. Each query gets the list a search of its own
+ * gives (its candidates are offered in the same order).
+ * @return WEFT_OK or WEFT_ERR_NOMEM (then no answer is to be used)
+ * Threads: reentrant.
+ */
+weft_err weft_index_int8_search_many(const weft_index_codes *c, const float *e,
+                                     size_t oversample, weft_index_query *qs, size_t m,
+                                     weft_error *err);
+
 /**
  * Lloyd's k-means: @p iters rounds of "assign every row of @p x (n x d) to its nearest
  * centroid (squared Euclidean distance, ties to the lower index), then move each centroid

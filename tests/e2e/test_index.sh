@@ -43,6 +43,21 @@ for n in n0 n7 n33 n150 n999 n2000; do
         compare "source=$n&k=10&include_known=true" int8 && ok=$((ok + 1))
 done
 check "int8 answers equal the exact scan's (6 nodes, plain, typed, known links kept)" test "$ok" -eq 6
+check "concurrent int8 queries (shared passes) answer as the exact scan, each its own" \
+    /usr/bin/python3 - "$BASE" <<'PY'
+import concurrent.futures, json, urllib.request, sys
+base = sys.argv[1]
+def get(q):
+    with urllib.request.urlopen(base + "/v1/links/predict?" + q) as r:
+        return json.load(r)
+queries = ["source=n%d&k=%d%s" % (n, 5 + n % 20, ["", "&candidate_type=red", "&include_known=true"][n % 3])
+           for n in range(0, 2400, 8)]
+want = {q: get(q + "&exact=true")["predictions"] for q in queries}
+with concurrent.futures.ThreadPoolExecutor(16) as pool:
+    got = dict(zip(queries, pool.map(get, queries)))
+bad = [q for q in queries if got[q]["path"] != "int8" or got[q]["predictions"] != want[q]]
+assert not bad, bad[:3]
+PY
 curl -fsS "$BASE/v1/links/predict?source=n0&k=50&candidate_type=green" >"$E2E_TMP/t.json"
 check "candidate_type holds on the index path" test "$(json_get "$E2E_TMP/t.json" \
     "all(int(p['target'][1:]) % 3 == 1 for p in d['predictions']) and len(d['predictions']) == 50")" = True

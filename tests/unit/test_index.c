@@ -241,6 +241,49 @@ Test(index, int8_filters_exclusions_and_types)
     free(q);
 }
 
+/* One pass for many queries gives each the list of its own search: different k, filters, a
+ * query with no finite value, k = 0; over enough rows for several chunks of the pass. */
+Test(index, many_queries_in_one_pass_answer_as_one_at_a_time)
+{
+    enum { N = 5000, D = 200, M = 6 };
+    float *e = random_rows(N, D, 11), *q = random_rows(M, D, 12);
+    q[4 * D + 3] = NAN;
+    struct codes c = encode(e, N, D);
+    uint32_t *type_of = malloc(N * sizeof *type_of);
+    cr_assert_not_null(type_of);
+    for (uint32_t i = 0; i < N; i++)
+        type_of[i] = i % 4;
+    weft_topk_exclude ex = { .has_self = true, .self = 17 };
+    weft_index_filter typed = { .ex = &ex, .type_of = type_of, .type = 2 };
+    static const size_t ks[M] = { 10, 1, 37, 10, 10, 0 };
+    const weft_index_filter *fs[M] = { NULL, &typed, NULL, &typed, NULL, NULL };
+    uint32_t id[M][40];
+    float score[M][40];
+    weft_index_query qs[M];
+    for (size_t i = 0; i < M; i++)
+        qs[i] = (weft_index_query){ .q = q + i * D, .k = ks[i], .f = fs[i], .id = id[i],
+                                    .score = score[i] };
+    weft_error err;
+    cr_assert_eq(weft_index_int8_search_many(&c.view, e, 2, qs, M, &err), WEFT_OK);
+    for (size_t i = 0; i < M; i++) {
+        uint32_t one[40];
+        float one_s[40];
+        size_t n = 99;
+        cr_assert_eq(weft_index_int8_search(&c.view, e, q + i * D, ks[i], 2, fs[i], one, one_s,
+                                            &n, &err), WEFT_OK);
+        cr_assert_eq(qs[i].n_out, n, "query %zu", i);
+        if (i != 4)   /* a query with a NaN gets what the exact scan gives it */
+            cr_assert_eq(n, ks[i], "query %zu: a full list", i);
+        for (size_t j = 0; j < n; j++)
+            cr_assert(qs[i].id[j] == one[j] && qs[i].score[j] == one_s[j], "query %zu rank %zu",
+                      i, j);
+    }
+    free(type_of);
+    codes_free(&c);
+    free(e);
+    free(q);
+}
+
 Test(index, ivf_lists_partition_the_rows)
 {
     enum { N = 3000, D = 24 };
