@@ -330,6 +330,14 @@ weft_err weft_snapshot_link_view(const weft_snapshot *snap, weft_link_view *out,
                       err)) ||
         (e = csr_view(snap, "known_in", v.n_nodes, v.n_nodes, v.n_relations, &v.known_in, err)))
         return e;
+    weft_blob st;   /* optional: snapshots of a GCN decoder, or of an earlier weft, keep none */
+    if (weft_snapshot_blob(snap, "optimizer_state", &st)) {
+        size_t rows = v.n_nodes + (rel.data ? rel.shape[0] : 0);
+        if (st.dtype != WEFT_DTYPE_F32 || st.ndim != 1 || st.shape[0] != rows)
+            return fail_blob(err, snap->version, "optimizer_state",
+                             "shape disagrees with the model");
+        v.state = st.data;
+    }
     *out = v;
     return WEFT_OK;
 }
@@ -363,6 +371,13 @@ static weft_err put_csr(weft_store_writer *w, const char *prefix, const weft_csr
         (e = put_part(w, prefix, "rel", WEFT_DTYPE_U32, nnz, c->rel, err)))
         return e;
     return put_part(w, prefix, "nbr", WEFT_DTYPE_U32, nnz, c->nbr, err);
+}
+
+weft_err weft_snapshot_put_optimizer_state(weft_store_writer *w, const float *state,
+                                           size_t rows, weft_error *err)
+{
+    size_t shape[1] = { rows };
+    return weft_store_writer_put(w, "optimizer_state", WEFT_DTYPE_F32, 1, shape, state, err);
 }
 
 weft_err weft_snapshot_put_link(weft_store_writer *w, json_t *manifest, const weft_graph *g,
@@ -671,7 +686,7 @@ static bool blob_of_part(const char *name, weft_snapshot_part part)
     static const char *const link[] = { "relations.", "known_out.", "known_in.", "index." };
     if (part == WEFT_SNAPSHOT_LABELS)
         return !strncmp(name, "classes.", 8) || !strncmp(name, "label.", 6);
-    if (!strcmp(name, "entity") || !strcmp(name, "relation"))
+    if (!strcmp(name, "entity") || !strcmp(name, "relation") || !strcmp(name, "optimizer_state"))
         return true;
     for (size_t i = 0; i < sizeof link / sizeof link[0]; i++)
         if (!strncmp(name, link[i], strlen(link[i])))

@@ -542,6 +542,6 @@ weft_err weft_train_gcn_link_params(const weft_gcn_trained *t, const weft_train_
     if (is_distmult)
         memcpy(slab + n * d, t->relation, n_relations * d * sizeof *slab);
     *out = (weft_link_params){ cfg->decoder, n, n_relations, d, false, slab, slab,
-                               is_distmult ? slab + n * d : NULL };
+                               is_distmult ? slab + n * d : NULL, NULL };   /* no warm start */
     return WEFT_OK;
 }

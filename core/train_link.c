@@ -145,6 +145,7 @@ void weft_link_params_fini(weft_link_params *p)
     if (!p)
         return;
     free(p->slab);
+    free(p->state);
     memset(p, 0, sizeof *p);
 }
 
@@ -171,6 +172,13 @@ static float gaussian(weft_rng *rng)
 {
     double u = weft_rng_double(rng), v = weft_rng_double(rng);
     return (float)(sqrt(-2.0 * log(1.0 - u)) * cos(6.283185307179586 * v));
+}
+
+/* The optimiser's second-moment state (Adagrad's sums of squared gradients, Adam's v), laid
+ * out as the slab. */
+static float *second_moment(const struct trainer *t)
+{
+    return t->cfg->optim == WEFT_OPTIM_ADAM ? t->state + t->n_param : t->state;
 }
 
 static weft_err trainer_init(struct trainer *t, const weft_train_link_config *cfg,
@@ -214,7 +222,30 @@ static weft_err trainer_init(struct trainer *t, const weft_train_link_config *cf
     for (size_t r = 0; w && w->relation && t->p.relation && r < t->n_rel_rows; r++)
         if (w->has_relation[r])
             memcpy(t->p.relation + r * t->d, w->relation + r * t->d, t->d * sizeof(float));
+    for (size_t row = 0; w && w->state && row < n_ent + t->n_rel_rows; row++) {
+        bool is_warm = row < n_ent ? w->entity && w->has_entity[row]
+                                   : w->relation && w->has_relation[row - n_ent];
+        float *s = second_moment(t) + row * t->d;
+        for (size_t j = 0; is_warm && j < t->d; j++)
+            s[j] = w->state[row];
+    }
     return WEFT_OK;
+}
+
+/* Each row's mean second-moment state into a new array (the rows of the slab: entities,
+ * then relations); NULL when out of memory. */
+static float *row_states(struct trainer *t)
+{
+    size_t rows = t->n_param / (t->d ? t->d : 1);
+    float *out = weft_alloc_array(rows ? rows : 1, sizeof *out);
+    const float *s = second_moment(t);
+    for (size_t row = 0; out && row < rows; row++) {
+        double sum = 0.0;
+        for (size_t j = 0; j < t->d; j++)
+            sum += s[row * t->d + j];
+        out[row] = (float)(sum / (double)t->d);
+    }
+    return out;
 }
 
 static void trainer_fini(struct trainer *t)
@@ -772,8 +803,13 @@ weft_err weft_train_link_run(const weft_train_link_config *cfg, const weft_tripl
         memcpy(t.p.slab, best, t.n_param * sizeof *best);
     else
         res.best_epoch = res.epochs_run;
+    if (!(t.p.state = row_states(&t))) {
+        rc = weft_error_set(err, WEFT_ERR_NOMEM, "out of memory for the optimiser state");
+        goto done;
+    }
     *out = t.p;
     t.p.slab = NULL;   /* handed to the caller */
+    t.p.state = NULL;
     if (result)
         *result = res;
 done:

@@ -410,6 +410,7 @@ struct inputs {
     weft_graph_part_overlap overlap[3];   /* [1] valid, [2] test against train */
     size_t n_test_in_valid;           /* test edges that are validation edges too */
     bool is_files;
+    uint64_t split_seed;              /* holdout: the seed it was drawn with */
 };
 
 static void inputs_fini(struct inputs *in)
@@ -519,6 +520,7 @@ static weft_err load_holdout(const struct train_opts *o, uint64_t seed, struct i
     weft_err rc = weft_split_holdout(in->g, o->frac_valid, o->frac_test, seed, &in->split, err);
     if (rc != WEFT_OK)
         return rc;
+    in->split_seed = seed;
     if (in->split.n_test == 0)
         return weft_error_set(err, WEFT_ERR_INVALID,
                               "no edge can be held out without cutting a node off the training "
@@ -764,8 +766,7 @@ static json_t *split_json(const struct train_opts *o, const struct inputs *in, u
     return s;
 }
 
-static json_t *build_manifest(const struct train_opts *o, const weft_train_link_config *c,
-                              const struct inputs *in, const struct results *res, json_t *curve,
+static json_t *build_manifest(const struct train_opts *o, const struct inputs *in, const struct results *res, json_t *curve,
                               json_t *inputs, json_t *model)
 {
     const weft_graph *g = in->g;
@@ -777,7 +778,7 @@ static json_t *build_manifest(const struct train_opts *o, const weft_train_link_
                               (json_int_t)g->n_self_loops);
     json_t *metrics = cmd_eval_metrics_json(&res->test, res->has_valid ? &res->valid : NULL,
                                             &rel);
-    if (metrics && json_object_set_new(metrics, "split", split_json(o, in, c->seed))) {
+    if (metrics && json_object_set_new(metrics, "split", split_json(o, in, in->split_seed))) {
         json_decref(metrics);
         metrics = NULL;
     }
@@ -816,6 +817,11 @@ static weft_err put_link(void *ctx, weft_store_writer *w, json_t *manifest, weft
     const struct link_put *lp = ctx;
     weft_link_model model = weft_link_params_model(lp->params);
     weft_err rc = weft_snapshot_put_link(w, manifest, lp->g, &model, lp->is_probability, err);
+    if (rc == WEFT_OK && lp->params->state) {
+        size_t rel_rows = model.relation ? model.n_relations * (model.has_reciprocal ? 2 : 1) : 0;
+        rc = weft_snapshot_put_optimizer_state(w, lp->params->state, model.n_entities + rel_rows,
+                                               err);
+    }
     if (rc == WEFT_OK)
         rc = weft_link_index_put(w, manifest, lp->index, err);
     if (rc == WEFT_OK && lp->labels)
@@ -823,8 +829,7 @@ static weft_err put_link(void *ctx, weft_store_writer *w, json_t *manifest, weft
     return rc;
 }
 
-static void print_inputs(const struct inputs *in, const weft_train_link_config *c,
-                         bool is_undirected)
+static void print_inputs(const struct inputs *in, bool is_undirected)
 {
     const weft_graph *g = in->g;
     printf("graph: %zu nodes, %zu edges, %zu relations (%zu duplicates dropped)%s\n",
@@ -835,7 +840,7 @@ static void print_inputs(const struct inputs *in, const weft_train_link_config *
                in->n_valid, in->n_test);
     else
         printf("split: %zu training, %zu validation, %zu test edges (seed %llu)\n", in->n_train,
-               in->n_valid, in->n_test, (unsigned long long)c->seed);
+               in->n_valid, in->n_test, (unsigned long long)in->split_seed);
 }
 
 static void print_run(const weft_train_link_config *c, const weft_train_result *run,
@@ -855,7 +860,8 @@ static void print_run(const weft_train_link_config *c, const weft_train_result *
  * before training: one LMDB environment per process). */
 struct warm {
     weft_train_warm w;
-    float *entity, *relation;
+    uint64_t version;                 /* the snapshot it starts from */
+    float *entity, *relation, *state;
     uint8_t *has_entity, *has_relation;
 };
 
@@ -863,6 +869,7 @@ static void warm_fini(struct warm *w)
 {
     free(w->entity);
     free(w->relation);
+    free(w->state);
     free(w->has_entity);
     free(w->has_relation);
 }
@@ -920,6 +927,12 @@ static weft_err warm_from_live(const struct train_opts *o, const weft_train_link
     }
     weft_names_view nodes = weft_names_as_view(&g->nodes);
     weft_names_view rels = weft_names_as_view(&g->relations);
+    /* With the optimiser state of the rows kept, so that their first steps stay as small as
+     * their last ones were (rows without a starting row start at zero, as fresh ones do). */
+    if (v.state && !(out->state = weft_calloc_array(n + rel_rows, sizeof *out->state))) {
+        rc = weft_error_set(err, WEFT_ERR_NOMEM, "out of memory for the warm start");
+        goto done;
+    }
     size_t kept = 0, kept_rel = 0;
     for (uint32_t u = 0; u < n; u++) {
         size_t len;
@@ -928,6 +941,8 @@ static weft_err warm_from_live(const struct train_opts *o, const weft_train_link
         if (weft_names_find(&v.nodes, name, len, &old)) {
             memcpy(out->entity + (size_t)u * d, v.entity + (size_t)old * d, d * sizeof(float));
             out->has_entity[u] = 1;
+            if (out->state)
+                out->state[u] = v.state[old];
             kept++;
         }
     }
@@ -941,13 +956,17 @@ static weft_err warm_from_live(const struct train_opts *o, const weft_train_link
             size_t to = r + k * n_rel, from = old + k * v.n_relations;
             memcpy(out->relation + to * d, v.model.relation + from * d, d * sizeof(float));
             out->has_relation[to] = 1;
+            if (out->state)
+                out->state[n + to] = v.state[v.n_nodes + from];
         }
         kept_rel++;
     }
+    out->version = live;
     out->w = (weft_train_warm){ out->entity, out->has_entity, rel_rows ? out->relation : NULL,
-                                rel_rows ? out->has_relation : NULL };
+                                rel_rows ? out->has_relation : NULL, out->state };
     printf("warm start from snapshot %llu: %zu of %zu nodes and %zu of %zu relations keep "
-           "their embeddings\n", (unsigned long long)live, kept, n, kept_rel, n_rel);
+           "their embeddings%s\n", (unsigned long long)live, kept, n, kept_rel, n_rel,
+           out->state ? " and optimiser state" : " (the snapshot keeps no optimiser state)");
 done:
     weft_snapshot_release(snap);
     weft_store_close(s);
@@ -1042,7 +1061,7 @@ int cmd_train_main(int argc, char **argv)
     }
     if (!in.is_files && (rc = load_holdout(&o, cfg.seed, &in, &err)) != WEFT_OK)
         goto done;
-    print_inputs(&in, &cfg, o.is_undirected);
+    print_inputs(&in, o.is_undirected);
     warn_parts(&in);
     if (!in.is_files && in.n_valid == 0 && o.frac_valid > 0)
         fprintf(stderr, "weft: warning: no edge could be held out for validation: no early "
@@ -1055,6 +1074,13 @@ int cmd_train_main(int argc, char **argv)
         if ((rc = warm_from_live(&o, &cfg, in.g, &warm, &err)) != WEFT_OK)
             goto done;
         cfg.warm = warm.entity ? &warm.w : NULL;
+        if (cfg.warm) {
+            /* Training draws (edge order, negatives) of their own: with the seed's, a warm
+             * run would replay the draws of the run it continues, edge for edge. The split
+             * keeps the seed. */
+            cfg.seed ^= (warm.version + 1) * 0x9e3779b97f4a7c15ull;
+            printf("warm start: training draws from seed %llu\n", (unsigned long long)cfg.seed);
+        }
     }
     if (!is_gcn_link)
         print_config(&cfg);
@@ -1067,7 +1093,7 @@ int cmd_train_main(int argc, char **argv)
                                                            o.features ? "features" : "embedding")
                                 : model_json(&cfg, &res.run);
     if (model)
-        manifest = build_manifest(&o, &cfg, &in, &res, pr.curve, inputs, model);
+        manifest = build_manifest(&o, &in, &res, pr.curve, inputs, model);
     else
         json_decref(inputs);
     inputs = NULL;   /* the manifest owns it now */

@@ -604,22 +604,34 @@ static bool is_alone(const http_model *m, const struct predict_query *q)
     return q->has_type || uses_index(m, q);
 }
 
-/* Answer the resolved queries ranked together (!is_alone) among @p items[0..n) in chunks of
- * BATCH_CHUNK:
- * the query vectors of a chunk stacked into one matrix and scanned at once, each list then
- * cut to its own k (a list's first k entries are the list of k). */
-static weft_err scan_chunks(const http_model *m, struct batch_item *items, size_t n,
-                            weft_error *err)
+/* Whether @p q goes into a chunk of rank_chunks(@p via_int8). */
+static bool in_chunk(const http_model *m, const struct predict_query *q, bool via_int8)
+{
+    return via_int8 ? m->index.kind == WEFT_LINK_INDEX_INT8 && uses_index(m, q)
+                    : !is_alone(m, q);
+}
+
+/* Answer the resolved queries among @p items[0..n) that in_chunk() selects in chunks of
+ * BATCH_CHUNK, the query vectors of a chunk stacked and answered by one pass: with
+ * @p via_int8, the queries answered through the snapshot's int8 index, one pass over its
+ * codes (weft_index_int8_search_many, filters included); else those neither limited to a
+ * type nor answered through an index, one pass over the matrix (weft_topk_scan_batch, each
+ * list then cut to its own k: a list's first k entries are the list of k). Either way each
+ * query gets the list of a search of its own. */
+static weft_err rank_chunks(const http_model *m, struct batch_item *items, size_t n,
+                            bool via_int8, weft_error *err)
 {
     const weft_link_view *v = &m->links;
     size_t pending[BATCH_CHUNK], max_k = 1;
     for (size_t i = 0; i < n; i++)
-        if (!items[i].answer && !is_alone(m, &items[i].q) && items[i].q.k > max_k)
+        if (!items[i].answer && in_chunk(m, &items[i].q, via_int8) && items[i].q.k > max_k)
             max_k = items[i].q.k;
     float *q = weft_alloc_array(BATCH_CHUNK, v->dim * sizeof *q);
     uint32_t *id = weft_alloc_array(BATCH_CHUNK, max_k * sizeof *id);
     float *score = weft_alloc_array(BATCH_CHUNK, max_k * sizeof *score);
     weft_topk_exclude ex[BATCH_CHUNK];
+    weft_index_filter f[BATCH_CHUNK];
+    weft_index_query qs[BATCH_CHUNK];
     size_t count[BATCH_CHUNK];
     weft_err rc = q && id && score ? check_kind(v, err)
                                    : weft_error_set(err, WEFT_ERR_NOMEM,
@@ -628,18 +640,31 @@ static weft_err scan_chunks(const http_model *m, struct batch_item *items, size_
         size_t m_chunk = 0;
         for (; i < n && m_chunk < BATCH_CHUNK; i++) {
             const struct batch_item *it = &items[i];
-            if (it->answer || is_alone(m, &it->q))
+            if (it->answer || !in_chunk(m, &it->q, via_int8))
                 continue;
+            size_t j = m_chunk++;
             weft_model_query(&v->model, it->q.anchor, it->q.relation, it->q.is_in,
-                             q + m_chunk * v->dim);
-            ex[m_chunk] = exclusion(v, &it->q);
-            pending[m_chunk++] = i;
+                             q + j * v->dim);
+            ex[j] = exclusion(v, &it->q);
+            f[j] = (weft_index_filter){ .ex = &ex[j],
+                                        .type_of = it->q.has_type ? m->types.of_node : NULL,
+                                        .type = it->q.type };
+            qs[j] = (weft_index_query){ .q = q + j * v->dim, .k = it->q.k, .f = &f[j],
+                                        .id = id + j * max_k, .score = score + j * max_k };
+            pending[j] = i;
         }
         if (m_chunk == 0)
             break;
-        weft_topk_scan_batch(v->entity, v->n_nodes, v->dim, q, m_chunk, max_k, ex, id, score,
-                             count);
-        for (size_t j = 0; j < m_chunk; j++) {
+        if (via_int8) {
+            rc = weft_index_int8_search_many(&m->index.codes, v->entity, m->index.oversample,
+                                             qs, m_chunk, err);
+            for (size_t j = 0; j < m_chunk; j++)
+                count[j] = qs[j].n_out;
+        } else {
+            weft_topk_scan_batch(v->entity, v->n_nodes, v->dim, q, m_chunk, max_k, ex, id,
+                                 score, count);
+        }
+        for (size_t j = 0; rc == WEFT_OK && j < m_chunk; j++) {
             struct batch_item *it = &items[pending[j]];
             struct workspace w = { max_k, id + j * max_k, score + j * max_k, NULL };
             size_t got = count[j] < it->q.k ? count[j] : it->q.k;
@@ -654,9 +679,10 @@ static weft_err scan_chunks(const http_model *m, struct batch_item *items, size_
 }
 
 /* Every query is checked for shape first; then each is resolved (a name the snapshot does
- * not know answers in its place), the queries limited to a type or answered through the
- * snapshot's index are ranked one by one and the others together (scan_chunks); answers
- * come back in the order asked. */
+ * not know answers in its place), the queries answered through an int8 index are ranked in
+ * chunks over its codes and the plain exact ones in chunks over the matrix (rank_chunks),
+ * the rest (exact queries limited to a type, queries through an ivf index) one by one;
+ * answers come back in the order asked. */
 void http_links_predict_batch(const http_request *rq, http_reply *out)
 {
     const http_model *m = rq->model;
@@ -693,7 +719,8 @@ void http_links_predict_batch(const http_request *rq, http_reply *out)
     struct workspace w = { 0 };
     weft_error_clear(&err);
     if (ok && (workspace_init(&w, max_typed_k, m->links.dim, &err) != WEFT_OK ||
-               scan_chunks(m, items, n_items, &err) != WEFT_OK)) {
+               rank_chunks(m, items, n_items, false, &err) != WEFT_OK ||
+               rank_chunks(m, items, n_items, true, &err) != WEFT_OK)) {
         http_error_from(out, &err, NULL);
         ok = false;
     }

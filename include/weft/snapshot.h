@@ -78,6 +78,9 @@ typedef struct weft_link_view {
     weft_csr known_in;      /**< every known link by target */
     bool has_self_loops;    /**< the known graph holds self-loops (else self is never a candidate) */
     bool is_probability;    /**< scores pass through the logistic function to a probability */
+    const float *state;     /**< (n_nodes + relation rows): the optimiser state of each row
+                                 when training ended (weft_link_params.state), for a warm
+                                 start; NULL when the snapshot keeps none */
 } weft_link_view;
 
 /**
@@ -99,6 +102,15 @@ weft_err weft_snapshot_link_view(const weft_snapshot *snap, weft_link_view *out,
  */
 weft_err weft_snapshot_put_link(weft_store_writer *w, json_t *manifest, const weft_graph *g,
                                 const weft_link_model *m, bool is_probability, weft_error *err);
+
+/**
+ * Write the optimiser state of a link model's rows (weft_link_params.state: @p rows floats,
+ * the model's nodes then its relation rows) as blob "optimizer_state", which
+ * weft_snapshot_link_view() reads back as weft_link_view.state for a later warm start.
+ * @return WEFT_OK and the codes of weft_store_writer_put()
+ */
+weft_err weft_snapshot_put_optimizer_state(weft_store_writer *w, const float *state,
+                                           size_t rows, weft_error *err);
 
 /**
  * The label model of a snapshot (a GCN over the node table) as read-only views into the map,

@@ -17,8 +17,11 @@ typedef struct weft_split {
 
 /**
  * Hold out about @p frac_valid and @p frac_test of the edges of final graph @p g, chosen
- * uniformly at random from @p seed, such that every node and every relation of a held-out
- * edge keeps at least one edge in train (so nothing is judged on a node it never saw).
+ * in the order of a hash of @p seed and each edge's names (as good as uniformly at random,
+ * and stable: the same edge keeps its place when the graph changes around it, so a grown
+ * graph's split holds out nearly the same old edges; see core/split.c), such that every
+ * node and every relation of a held-out edge keeps at least one edge in train (so nothing is
+ * judged on a node it never saw).
  * In an undirected graph an edge and its reverse are held out together (no leak through the
  * symmetric copy). Edges keep their sorted order within each part.
  * @return WEFT_OK, WEFT_ERR_INVALID (fractions < 0 or summing to >= 1), WEFT_ERR_NOMEM

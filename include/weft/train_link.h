@@ -53,6 +53,12 @@ typedef struct weft_train_warm {
     const uint8_t *has_entity;     /**< (n_entities): 1 where entity holds a starting row */
     const float *relation;         /**< (relation rows, dim), or NULL */
     const uint8_t *has_relation;   /**< (relation rows), or NULL */
+    const float *state;            /**< (n_entities + relation rows), or NULL: the optimiser
+                                        state of each starting row (weft_link_params.state of
+                                        the run it comes from). Without it a starting row's
+                                        first Adagrad step moves each coordinate by the full
+                                        learning rate, as a fresh row's does, and undoes much
+                                        of the earlier training. */
 } weft_train_warm;
 
 /** Hyper-parameters of one training run. */
@@ -124,6 +130,10 @@ typedef struct weft_link_params {
     float *slab;
     float *entity;         /**< (n_entities, dim) */
     float *relation;       /**< (n_relations or 2 * n_relations, dim); NULL for dot */
+    float *state;          /**< (n_entities + relation rows): each row's mean second-moment
+                                state of the optimiser when training ended (Adagrad's sums of
+                                squared gradients, Adam's v), for a later warm start; NULL
+                                when not kept */
 } weft_link_params;
 
 /** How a run ended. */

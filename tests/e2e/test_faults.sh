@@ -170,13 +170,26 @@ WINDOW=$(awk -v ms="$CYCLE_MS" 'BEGIN { printf "%d", ms * 2 + 1 }')
 in_training=0
 in_other=0
 committed=0
-i=1
-while [ $i -le "$KILLS" ]; do
+# kill_worker N DELAY|train: start the worker, kill its process group after DELAY seconds
+# (train: once its weft train child has run for a random part of a short while), note what
+# the kill interrupted, and check the store and the server.
+kill_worker() {
     before=$(live_of "$A/store")
-    setsid "$WEFT" worker --config "$A/worker.conf" >"$A/worker.$i.log" 2>&1 &
+    setsid "$WEFT" worker --config "$A/worker.conf" >"$A/worker.$1.log" 2>&1 &
     WORKER=$!
-    delay=$(random_seconds $i "$WINDOW")
-    sleep "$delay"
+    delay=$2
+    if [ "$2" = train ]; then
+        n=0
+        until ps -o args= --ppid "$WORKER" 2>/dev/null | grep -q '^[^ ]*weft train' \
+            || [ $n -ge 600 ]; do
+            sleep 0.01
+            n=$((n + 1))
+        done
+        delay="train + $(random_seconds "$1" 300)"
+        sleep "${delay#train + }"
+    else
+        sleep "$delay"
+    fi
     # What the kill interrupts: a weft train (or prune) child, or the worker alone.
     child=$(ps -o stat=,args= --ppid "$WORKER" 2>/dev/null | awk '$1 !~ /^Z/ { print $3; exit }')
     kill -s KILL -- "-$WORKER"
@@ -194,10 +207,20 @@ while [ $i -le "$KILLS" ]; do
     fi
     live=$(live_of "$A/store")
     [ "$live" != "$before" ] && committed=$((committed + 1))
-    check "(a) kill $i after ${delay}s ($what): store verifies, live version $live holds both models, served" \
+    check "(a) kill $1 after ${delay}s ($what): store verifies, live version $live holds both models, served" \
         served_whole "$A/store" "$live"
+}
+i=1
+while [ $i -le "$KILLS" ]; do
+    kill_worker $i "$(random_seconds $i "$WINDOW")"
     i=$((i + 1))
 done
+# Random moments may miss the training runs on a loaded machine: aim the rest at them.
+while [ "$in_training" -lt 3 ] && [ $i -le $((KILLS + 6)) ]; do
+    kill_worker $i train
+    i=$((i + 1))
+done
+KILLS=$((i - 1))
 echo "$KILLS kills: $in_training during weft train, $in_other elsewhere (window ${WINDOW} ms);"
 echo "$committed of them after a new version was promoted"
 check "(a) kills landed during training runs ($in_training of $KILLS)" test "$in_training" -ge 3

@@ -78,6 +78,22 @@ curl -fsS -X POST -H 'Content-Type: application/json' \
     "$BASE/v1/links/predict" >"$E2E_TMP/batch.json"
 check "POST: each answer says its path, and both agree" test "$(json_get "$E2E_TMP/batch.json" \
     "([r['path'] for r in d['results']], d['results'][0]['predictions'] == d['results'][1]['predictions'])")" = "(['int8', 'exact'], True)"
+check "POST: 150 queries through the int8 index (in chunks of 64) answer as exact=true" \
+    /usr/bin/python3 - "$BASE" <<'PY'
+import json, urllib.request, sys
+base = sys.argv[1]
+qs = [dict({"source": "n%d" % n, "k": 3 + n % 17},
+           **[{}, {"candidate_type": "blue"}, {"include_known": True}][n % 3]) for n in range(0, 1500, 10)]
+def post(queries):
+    r = urllib.request.Request(base + "/v1/links/predict", json.dumps({"queries": queries}).encode(),
+                               {"Content-Type": "application/json"})
+    with urllib.request.urlopen(r) as f:
+        return json.load(f)["results"]
+got, want = post(qs), post([dict(q, exact=True) for q in qs])
+assert [r["path"] for r in got] == ["int8"] * len(qs)
+bad = [i for i in range(len(qs)) if got[i]["predictions"] != want[i]["predictions"]]
+assert not bad, [qs[i] for i in bad[:3]]
+PY
 check "exact=maybe is a 400 with a hint" sh -c \
     "test \"\$(curl -s -o /dev/null -w '%{http_code}' '$BASE/v1/links/predict?source=n0&exact=maybe')\" = 400"
 stop_server

@@ -133,3 +133,86 @@ Test(split, rejects_fractions_that_leave_no_training)
     cr_assert(strstr(err.msg, "below 1"), "message: %s", err.msg);
     weft_graph_free(g);
 }
+
+/* "s r t" of edge @p e of @p g, into @p buf. */
+static void edge_name(const weft_graph *g, const weft_triple *e, char *buf, size_t cap)
+{
+    weft_names_view nodes = weft_names_as_view(&g->nodes), rels = weft_names_as_view(&g->relations);
+    size_t ls, lr, lt;
+    const char *s = weft_names_get(&nodes, e->s, &ls), *t = weft_names_get(&nodes, e->t, &lt);
+    const char *r = weft_names_get(&rels, e->r, &lr);
+    snprintf(buf, cap, "%.*s %.*s %.*s", (int)ls, s, (int)lr, r, (int)lt, t);
+}
+
+static int cmp_str(const void *a, const void *b)
+{
+    return strcmp(*(char *const *)a, *(char *const *)b);
+}
+
+/* The held-out edges (valid and test) of @p sp as sorted names; *n out. */
+static char **held_out_names(const weft_graph *g, const weft_split *sp, size_t *n)
+{
+    *n = sp->n_valid + sp->n_test;
+    char **out = calloc(*n ? *n : 1, sizeof *out);
+    for (size_t i = 0; i < *n; i++) {
+        const weft_triple *e = i < sp->n_valid ? &sp->valid[i] : &sp->test[i - sp->n_valid];
+        out[i] = malloc(64);
+        edge_name(g, e, out[i], 64);
+    }
+    qsort(out, *n, sizeof *out, cmp_str);
+    return out;
+}
+
+/* A graph that grows (5 % more edges, the old ones given in the reverse order, so every node
+ * gets another id) keeps its held-out edges: a model trained on the first split's training
+ * edges has seen hardly any of the second split's held-out ones. */
+Test(split, a_grown_graph_holds_out_the_same_old_edges)
+{
+    enum { N = 400, M = 4000, EXTRA = 200 };
+    weft_graph *g1 = random_graph(0, 5, N, M, 3), *g2 = NULL;
+    cr_assert_eq(weft_graph_new(0, &g2, NULL), WEFT_OK);
+    weft_rng rng;
+    weft_rng_seed(&rng, 77);
+    for (size_t k = 0; k < g1->n_edges + EXTRA; k++) {
+        char name[64], s[16], r[16], t[16];
+        if (k < g1->n_edges)
+            edge_name(g1, &g1->edges[g1->n_edges - 1 - k], name, sizeof name);
+        else
+            snprintf(name, sizeof name, "n%u r%u n%u", weft_rng_below(&rng, N),
+                     weft_rng_below(&rng, 3), weft_rng_below(&rng, N));
+        cr_assert_eq(sscanf(name, "%15s %15s %15s", s, r, t), 3);
+        cr_assert_eq(weft_graph_add_edge(g2, s, strlen(s), r, strlen(r), t, strlen(t), NULL),
+                     WEFT_OK);
+    }
+    cr_assert_eq(weft_graph_finalize(g2, NULL), WEFT_OK);
+    weft_split a, b;
+    cr_assert_eq(weft_split_holdout(g1, 0.05, 0.1, 3, &a, NULL), WEFT_OK);
+    cr_assert_eq(weft_split_holdout(g2, 0.05, 0.1, 3, &b, NULL), WEFT_OK);
+    size_t na, nb;
+    char **ha = held_out_names(g1, &a, &na), **hb = held_out_names(g2, &b, &nb);
+    /* held out in the second split, and a training edge of the first */
+    size_t leaked = 0, kept = 0;
+    for (size_t i = 0; i < nb; i++) {
+        bool in_g1 = false, was_held = bsearch(&hb[i], ha, na, sizeof *ha, cmp_str) != NULL;
+        for (size_t j = 0; !was_held && !in_g1 && j < g1->n_edges; j++) {
+            char name[64];
+            edge_name(g1, &g1->edges[j], name, sizeof name);
+            in_g1 = !strcmp(name, hb[i]);
+        }
+        leaked += in_g1 && !was_held;
+        kept += was_held;
+    }
+    cr_assert_leq(leaked, nb / 50, "%zu of %zu held-out edges were training edges before",
+                  leaked, nb);
+    cr_assert_geq(kept, na * 9 / 10, "%zu of the %zu edges held out before still are", kept, na);
+    for (size_t i = 0; i < na; i++)
+        free(ha[i]);
+    for (size_t i = 0; i < nb; i++)
+        free(hb[i]);
+    free(ha);
+    free(hb);
+    weft_split_fini(&a);
+    weft_split_fini(&b);
+    weft_graph_free(g1);
+    weft_graph_free(g2);
+}
