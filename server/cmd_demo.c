@@ -124,7 +124,7 @@ static const struct family families[] = {
     { "lora-module", CAT_RADIO, H | M, true, "sx1276-868 sx1262-915 ra-02 rfm95w" },
     { "nrf24-module", CAT_RADIO, H | R, true, "nrf24l01 nrf24l01-pa-lna" },
     { "sdr-dongle", CAT_RADIO, M, true, "rtl2832u-tcxo rtl2832u-v4 hf-upconverter" },
-    { "video-link", CAT_RADIO, D, false, "5ghz-low 5ghz-high mini-mid" },
+    { "camera-radio", CAT_RADIO, D, false, "band-low band-high compact" },
     { "rc-receiver", CAT_RADIO, D, false, "2g4-nano 900mhz-nano 2g4-diversity" },
     { "antenna", CAT_RADIO, M | D, false, "sma-2g4 sma-915 dipole-2m yagi-70cm" },
     { "xt60-connector", CAT_CONNECTORS, D, false, "pair pigtail-12awg y-harness" },
@@ -172,7 +172,7 @@ struct kit {
 static const struct kit kits[] = {
     { DRONES, "flight-controller esc brushless-motor propeller-set drone-frame" },
     { DRONES, "lipo-pack xt60-connector esc" },
-    { DRONES, "video-link antenna flight-controller" },
+    { DRONES, "camera-radio antenna flight-controller" },
     { DRONES, "rc-receiver flight-controller antenna" },
     { DRONES, "gps-module flight-controller stm32-bluepill" },
     { ROBOTICS, "servo-sg90 pan-tilt-bracket arduino-nano" },
