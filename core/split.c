@@ -87,14 +87,12 @@ static uint64_t mix64(uint64_t x)
 
 /* A unit's place in the order: a hash of @p seed and the unit's names (source, relation,
  * target; undirected, the two ends in byte order), each name followed by a 0 byte. */
-static uint64_t unit_key(const weft_graph *g, const weft_triple *e, bool undirected,
-                         uint64_t seed)
+static uint64_t unit_key(const weft_names_view *nodes, const weft_names_view *rels,
+                         const weft_triple *e, bool undirected, uint64_t seed)
 {
-    weft_names_view nodes = weft_names_as_view(&g->nodes);
-    weft_names_view rels = weft_names_as_view(&g->relations);
     size_t ls, lr, lt;
-    const char *s = weft_names_get(&nodes, e->s, &ls), *t = weft_names_get(&nodes, e->t, &lt);
-    const char *r = weft_names_get(&rels, e->r, &lr);
+    const char *s = weft_names_get(nodes, e->s, &ls), *t = weft_names_get(nodes, e->t, &lt);
+    const char *r = weft_names_get(rels, e->r, &lr);
     if (undirected) {
         int c = memcmp(s, t, ls < lt ? ls : lt);
         if (c > 0 || (c == 0 && ls > lt)) {
@@ -148,6 +146,8 @@ weft_err weft_split_holdout(const weft_graph *g, double frac_valid, double frac_
     }
     /* Units: every edge, or in an undirected graph the edges with s <= t (the reverse rides
      * along). Degrees count incident edge entries, so a self-loop counts twice. */
+    weft_names_view nodes = weft_names_as_view(&g->nodes);
+    weft_names_view rels = weft_names_as_view(&g->relations);
     size_t n_units = 0;
     for (size_t i = 0; i < m; i++) {
         const weft_triple *e = &g->edges[i];
@@ -158,7 +158,7 @@ weft_err weft_split_holdout(const weft_graph *g, double frac_valid, double frac_
         if (!undirected || e->s <= e->t) {
             if (undirected && e->s != e->t)
                 partner[i] = find_reverse(g, i);
-            units[n_units++] = (struct keyed_unit){ unit_key(g, e, undirected, seed), i };
+            units[n_units++] = (struct keyed_unit){ unit_key(&nodes, &rels, e, undirected, seed), i };
         }
     }
     qsort(units, n_units, sizeof *units, cmp_keyed);
