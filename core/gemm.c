@@ -148,6 +148,11 @@ __attribute__((target("avx512f"))) static void kernel(size_t kc, const float *ap
             c[i * ldc + j] = accumulate ? c[i * ldc + j] + tile[i * NR + j] : tile[i * NR + j];
 }
 
+static size_t round_up(size_t x, size_t to)
+{
+    return (x + to - 1) / to * to;
+}
+
 struct gemm_job {
     bool trans_a, trans_b;
     size_t m, n, k;
@@ -238,7 +243,15 @@ void weft_gemm(bool trans_a, bool trans_b, size_t m, size_t n, size_t k, float a
         size_t tile = by_rows ? MR : NR, extent = by_rows ? m : n;
         if (n_threads > tiles)
             n_threads = tiles;
-        size_t per_thread = (size_t)MC * KC + (size_t)KC * NC;
+        /* Packing buffers as large as this product needs, not MC x KC and KC x NC: the
+         * products of a training step are small, and a 2 MB buffer per call costs page
+         * faults (and, under the address sanitizer, a fill of every byte). */
+        size_t share = (tiles + n_threads - 1) / n_threads * tile;
+        size_t rows = by_rows && share < m ? share : m, cols = !by_rows && share < n ? share : n;
+        size_t kc = k < KC ? k : KC;
+        size_t a_size = round_up(round_up(rows < MC ? rows : MC, MR) * kc, 16);
+        size_t b_size = round_up(round_up(cols < NC ? cols : NC, NR) * kc, 16);
+        size_t per_thread = a_size + b_size;   /* floats; a multiple of 16 keeps 64-byte rows */
         float *buf = aligned_alloc(64, n_threads * per_thread * sizeof(float));
         if (buf) {   /* without memory for packing, the library does it all */
             for (size_t t = 0; t < n_threads; t++) {
@@ -247,8 +260,8 @@ void weft_gemm(bool trans_a, bool trans_b, size_t m, size_t n, size_t k, float a
                 float *ap = buf + t * per_thread;
                 jobs[t] = (struct gemm_job){ trans_a, trans_b, m, n, k, alpha, beta, a, b, lda,
                                              ldb, ldc, c, by_rows ? lo : 0, by_rows ? hi : m,
-                                             by_rows ? 0 : lo, by_rows ? n : hi, ap,
-                                             ap + (size_t)MC * KC, false };
+                                             by_rows ? 0 : lo, by_rows ? n : hi, ap, ap + a_size,
+                                             false };
                 jobs[t].is_started =
                     t > 0 && pthread_create(&tids[t], NULL, gemm_block, &jobs[t]) == 0;
             }
