@@ -153,6 +153,55 @@ static size_t round_up(size_t x, size_t to)
     return (x + to - 1) / to * to;
 }
 
+/* The calling thread's packing space, kept between calls (a training step makes several
+ * products, thousands of times) and freed when the thread ends. */
+struct pack_cache {
+    float *buf;
+    size_t cap;   /* floats */
+};
+static pthread_key_t pack_key;
+static pthread_once_t pack_once = PTHREAD_ONCE_INIT;
+static bool has_pack_key;
+
+static void pack_cache_free(void *p)
+{
+    struct pack_cache *pc = p;
+    free(pc->buf);
+    free(pc);
+}
+
+static void pack_key_create(void)
+{
+    has_pack_key = pthread_key_create(&pack_key, pack_cache_free) == 0;
+}
+
+/* @p floats floats, 64-byte aligned, for the calling thread until its next call; NULL when
+ * there is no memory. */
+static float *pack_space(size_t floats)
+{
+    pthread_once(&pack_once, pack_key_create);
+    if (!has_pack_key)
+        return NULL;
+    struct pack_cache *pc = pthread_getspecific(pack_key);
+    if (!pc) {
+        if (!(pc = calloc(1, sizeof *pc)))
+            return NULL;
+        if (pthread_setspecific(pack_key, pc) != 0) {
+            free(pc);
+            return NULL;
+        }
+    }
+    if (pc->cap < floats) {
+        float *grown = aligned_alloc(64, round_up(floats, 16) * sizeof(float));
+        if (!grown)
+            return NULL;
+        free(pc->buf);
+        pc->buf = grown;
+        pc->cap = round_up(floats, 16);
+    }
+    return pc->buf;
+}
+
 struct gemm_job {
     bool trans_a, trans_b;
     size_t m, n, k;
@@ -252,7 +301,7 @@ void weft_gemm(bool trans_a, bool trans_b, size_t m, size_t n, size_t k, float a
         size_t a_size = round_up(round_up(rows < MC ? rows : MC, MR) * kc, 16);
         size_t b_size = round_up(round_up(cols < NC ? cols : NC, NR) * kc, 16);
         size_t per_thread = a_size + b_size;   /* floats; a multiple of 16 keeps 64-byte rows */
-        float *buf = aligned_alloc(64, n_threads * per_thread * sizeof(float));
+        float *buf = pack_space(n_threads * per_thread);
         if (buf) {   /* without memory for packing, the library does it all */
             for (size_t t = 0; t < n_threads; t++) {
                 size_t lo = tiles * t / n_threads * tile, hi = tiles * (t + 1) / n_threads * tile;
@@ -271,7 +320,6 @@ void weft_gemm(bool trans_a, bool trans_b, size_t m, size_t n, size_t k, float a
             for (size_t t = 0; t < n_threads; t++)
                 if (jobs[t].is_started)
                     pthread_join(tids[t], NULL);
-            free(buf);
             return;
         }
     }
