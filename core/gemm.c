@@ -251,6 +251,101 @@ static void *gemm_block(void *arg)
     return NULL;
 }
 
+enum { MAX_THREADS = 64 };
+
+/* Helper threads kept between products. Starting threads for every product cost more than
+ * the small products of a training step themselves (perf, default Cora run: 43 % of the time
+ * in clone3). One caller at a time has them (`busy`); another caller meanwhile starts threads
+ * of its own, as every caller did before. Helper i (1 <= i < MAX_THREADS) runs jobs[i] of each
+ * round that has one. */
+static struct {
+    pthread_mutex_t busy;                 /* held by the caller whose product runs */
+    pthread_mutex_t lock;                 /* guards what follows */
+    pthread_cond_t go, done;
+    size_t n_helpers;                     /* started: helpers 1 .. n_helpers */
+    unsigned long round;                  /* one per product */
+    unsigned long start_round[MAX_THREADS];   /* the round before helper i started */
+    struct gemm_job *jobs;
+    size_t n_jobs, n_running;             /* this round's jobs; helpers still at work */
+    bool is_forked;                       /* in a child of fork(): no helpers came along */
+} pool = { PTHREAD_MUTEX_INITIALIZER, PTHREAD_MUTEX_INITIALIZER, PTHREAD_COND_INITIALIZER,
+           PTHREAD_COND_INITIALIZER, 0, 0, { 0 }, NULL, 0, 0, false };
+static pthread_once_t pool_once = PTHREAD_ONCE_INIT;
+
+static void pool_forked(void)
+{
+    pool.is_forked = true;
+}
+
+static void pool_init(void)
+{
+    pthread_atfork(NULL, NULL, pool_forked);
+}
+
+static void *helper_main(void *arg)
+{
+    size_t me = (size_t)(uintptr_t)arg;
+    pthread_mutex_lock(&pool.lock);
+    unsigned long seen = pool.start_round[me];
+    for (;;) {
+        while (pool.round == seen)
+            pthread_cond_wait(&pool.go, &pool.lock);
+        seen = pool.round;
+        if (me >= pool.n_jobs)
+            continue;
+        struct gemm_job *j = &pool.jobs[me];
+        pthread_mutex_unlock(&pool.lock);
+        gemm_block(j);
+        pthread_mutex_lock(&pool.lock);
+        if (--pool.n_running == 0)
+            pthread_cond_signal(&pool.done);
+    }
+    return NULL;
+}
+
+/* Run @p jobs (n >= 2) on the helpers and the calling thread; false, with nothing run, when
+ * another caller has the helpers. Helpers that cannot be started leave their jobs to the
+ * caller. */
+static bool pool_run(struct gemm_job *jobs, size_t n)
+{
+    pthread_once(&pool_once, pool_init);
+    if (pool.is_forked || pthread_mutex_trylock(&pool.busy) != 0)
+        return false;
+    pthread_mutex_lock(&pool.lock);
+    pthread_attr_t attr;
+    bool has_attr = pthread_attr_init(&attr) == 0;
+    if (has_attr)
+        pthread_attr_setdetachstate(&attr, PTHREAD_CREATE_DETACHED);
+    while (has_attr && pool.n_helpers + 1 < n) {
+        size_t i = pool.n_helpers + 1;
+        pthread_t tid;
+        pool.start_round[i] = pool.round;
+        if (pthread_create(&tid, &attr, helper_main, (void *)(uintptr_t)i) != 0)
+            break;
+        pool.n_helpers = i;
+    }
+    if (has_attr)
+        pthread_attr_destroy(&attr);
+    size_t on_helpers = pool.n_helpers + 1 < n ? pool.n_helpers + 1 : n;
+    pool.jobs = jobs;
+    pool.n_jobs = on_helpers;
+    pool.n_running = on_helpers - 1;
+    pool.round++;
+    pthread_cond_broadcast(&pool.go);
+    pthread_mutex_unlock(&pool.lock);
+    gemm_block(&jobs[0]);
+    for (size_t t = on_helpers; t < n; t++)
+        gemm_block(&jobs[t]);
+    pthread_mutex_lock(&pool.lock);
+    while (pool.n_running > 0)
+        pthread_cond_wait(&pool.done, &pool.lock);
+    pool.jobs = NULL;
+    pool.n_jobs = 0;
+    pthread_mutex_unlock(&pool.lock);
+    pthread_mutex_unlock(&pool.busy);
+    return true;
+}
+
 bool weft_gemm_is_native(void)
 {
     return atomic_load(&native_allowed) && __builtin_cpu_supports("avx512f");
@@ -282,7 +377,6 @@ void weft_gemm(bool trans_a, bool trans_b, size_t m, size_t n, size_t k, float a
         return;
 #ifdef WEFT_GEMM_X86
     if (weft_gemm_is_native() && k > 0) {
-        enum { MAX_THREADS = 64 };
         struct gemm_job jobs[MAX_THREADS];
         pthread_t tids[MAX_THREADS];
         n_threads = n_threads < 1 ? 1 : n_threads > MAX_THREADS ? MAX_THREADS : n_threads;
@@ -311,9 +405,15 @@ void weft_gemm(bool trans_a, bool trans_b, size_t m, size_t n, size_t k, float a
                                              ldb, ldc, c, by_rows ? lo : 0, by_rows ? hi : m,
                                              by_rows ? 0 : lo, by_rows ? n : hi, ap, ap + a_size,
                                              false };
-                jobs[t].is_started =
-                    t > 0 && pthread_create(&tids[t], NULL, gemm_block, &jobs[t]) == 0;
             }
+            if (n_threads == 1) {
+                gemm_block(&jobs[0]);
+                return;
+            }
+            if (pool_run(jobs, n_threads))
+                return;
+            for (size_t t = 1; t < n_threads; t++)
+                jobs[t].is_started = pthread_create(&tids[t], NULL, gemm_block, &jobs[t]) == 0;
             for (size_t t = 0; t < n_threads; t++)
                 if (!jobs[t].is_started)
                     gemm_block(&jobs[t]);

@@ -12,7 +12,9 @@
  * @p trans_a, stored row-major with leading dimension @p lda) and op(B) is k x n likewise.
  * With beta == 0, C is not read (NaN in C does not propagate).
  * @param n_threads  threads to use (>= 1); the result does not depend on it
- * Allocates packing buffers per call (about 2 MB per thread).
+ * Thread-safe. The calling thread keeps its packing space (at most about 2 MB per thread used)
+ * until it ends; the helper threads of a product are kept for the next one, and a caller that
+ * finds them busy with another caller's product starts threads of its own.
  */
 void weft_gemm(bool trans_a, bool trans_b, size_t m, size_t n, size_t k, float alpha,
                const float *a, size_t lda, const float *b, size_t ldb, float beta, float *c,

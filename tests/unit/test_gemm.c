@@ -1,11 +1,14 @@
 /* weft_gemm against the plain triple loop of weft_gemm_ref (sums in double), on every
  * transpose combination, edge sizes that leave partial 12 x 32 tiles, alpha and beta, and
- * the same result whatever the thread count. */
+ * the same result whatever the thread count, the number of callers at once, or a fork. */
 #include <criterion/criterion.h>
 #include <criterion/parameterized.h>
 #include <math.h>
+#include <pthread.h>
 #include <stdlib.h>
 #include <string.h>
+#include <sys/wait.h>
+#include <unistd.h>
 
 #include "weft/gemm.h"
 #include "weft/rng.h"
@@ -86,4 +89,63 @@ ParameterizedTest(struct gemm_case *t, gemm, matches_reference)
 ParameterizedTest(struct gemm_case *t, gemm, blas_fallback_matches_reference)
 {
     check_case(t, false);
+}
+
+/* Callers at once: one has the kept helper threads, the others start threads of their own;
+ * the helper set grows from 2 to 4 threads between products. Every product equals the same
+ * product on one thread, bit for bit. */
+struct caller {
+    const float *a, *b, *want;
+    size_t m, n, k, n_threads;
+    bool is_equal;
+};
+
+static void *caller_main(void *arg)
+{
+    struct caller *c = arg;
+    float *got = malloc(c->m * c->n * sizeof *got);
+    c->is_equal = got != NULL;
+    for (int round = 0; round < 20 && c->is_equal; round++) {
+        weft_gemm(false, true, c->m, c->n, c->k, 1.0f, c->a, c->k, c->b, c->k, 0.0f, got, c->n,
+                  c->n_threads + (size_t)round % 3);
+        c->is_equal = memcmp(got, c->want, c->m * c->n * sizeof *got) == 0;
+    }
+    free(got);
+    return NULL;
+}
+
+Test(gemm, callers_at_once_get_the_one_thread_product, .timeout = 60)
+{
+    weft_gemm_allow_native(true);
+    weft_rng rng;
+    weft_rng_seed(&rng, 5);
+    enum { M = 150, N = 90, K = 70, CALLERS = 4 };
+    float *a = random_matrix(&rng, M * K), *b = random_matrix(&rng, N * K);
+    float *want = malloc(M * N * sizeof *want);
+    weft_gemm(false, true, M, N, K, 1.0f, a, K, b, K, 0.0f, want, N, 1);
+    struct caller c[CALLERS];
+    pthread_t tid[CALLERS];
+    for (size_t i = 0; i < CALLERS; i++) {
+        c[i] = (struct caller){ a, b, want, M, N, K, 2, false };
+        cr_assert_eq(pthread_create(&tid[i], NULL, caller_main, &c[i]), 0);
+    }
+    for (size_t i = 0; i < CALLERS; i++) {
+        pthread_join(tid[i], NULL);
+        cr_assert(c[i].is_equal, "caller %zu got another product", i);
+    }
+    /* A child of fork() has none of the parent's helper threads: its products still finish. */
+    pid_t pid = fork();
+    cr_assert_neq(pid, -1);
+    if (pid == 0) {
+        alarm(30);   /* a product waiting for helpers that are not there fails, not hangs */
+        float *got = malloc(M * N * sizeof *got);
+        weft_gemm(false, true, M, N, K, 1.0f, a, K, b, K, 0.0f, got, N, 3);
+        _exit(got && memcmp(got, want, M * N * sizeof *got) == 0 ? 0 : 1);
+    }
+    int status = 0;
+    cr_assert_eq(waitpid(pid, &status, 0), pid);
+    cr_assert(WIFEXITED(status) && WEXITSTATUS(status) == 0, "the child's product differs");
+    free(a);
+    free(b);
+    free(want);
 }
