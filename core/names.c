@@ -10,14 +10,18 @@
 enum { NAMES_INITIAL_CAP = 16, NAMES_INITIAL_BYTES = 256 };
 
 /* FNV-1a, 64-bit (Fowler, Noll & Vo): offset basis 14695981039346656037, prime 2^40 + 435. */
-uint64_t weft_names_hash(const char *s, size_t len)
+uint64_t weft_names_hash_more(uint64_t h, const char *s, size_t len)
 {
-    uint64_t h = 0xcbf29ce484222325ULL;
     for (size_t i = 0; i < len; i++) {
         h ^= (unsigned char)s[i];
         h *= 0x100000001b3ULL;
     }
     return h;
+}
+
+uint64_t weft_names_hash(const char *s, size_t len)
+{
+    return weft_names_hash_more(0xcbf29ce484222325ULL, s, len);
 }
 
 weft_err weft_names_init(weft_names *t, weft_error *err)

@@ -373,10 +373,11 @@ static weft_err put_csr(weft_store_writer *w, const char *prefix, const weft_csr
     return put_part(w, prefix, "nbr", WEFT_DTYPE_U32, nnz, c->nbr, err);
 }
 
-weft_err weft_snapshot_put_optimizer_state(weft_store_writer *w, const float *state,
-                                           size_t rows, weft_error *err)
+weft_err weft_snapshot_put_optimizer_state(weft_store_writer *w, const weft_link_model *m,
+                                           const float *state, weft_error *err)
 {
-    size_t shape[1] = { rows };
+    size_t rel_rows = m->relation ? m->n_relations * (m->has_reciprocal ? 2 : 1) : 0;
+    size_t shape[1] = { m->n_entities + rel_rows };
     return weft_store_writer_put(w, "optimizer_state", WEFT_DTYPE_F32, 1, shape, state, err);
 }
 

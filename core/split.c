@@ -68,15 +68,6 @@ static weft_err collect(const weft_graph *g, const unsigned char *part, weft_spl
     return WEFT_OK;
 }
 
-/* FNV-1a (64 bits) of @p len bytes at @p p, on from @p h. */
-static uint64_t fnv1a(uint64_t h, const void *p, size_t len)
-{
-    const unsigned char *b = p;
-    for (size_t i = 0; i < len; i++)
-        h = (h ^ b[i]) * 0x100000001b3ull;
-    return h;
-}
-
 /* The splitmix64 finaliser: every bit of @p x reaches every bit of the result. */
 static uint64_t mix64(uint64_t x)
 {
@@ -104,11 +95,9 @@ static uint64_t unit_key(const weft_names_view *nodes, const weft_names_view *re
             lt = lx;
         }
     }
-    static const char zero = 0;
-    uint64_t h = 0xcbf29ce484222325ull;
-    h = fnv1a(fnv1a(h, s, ls), &zero, 1);
-    h = fnv1a(fnv1a(h, r, lr), &zero, 1);
-    h = fnv1a(fnv1a(h, t, lt), &zero, 1);
+    uint64_t h = weft_names_hash_more(weft_names_hash(s, ls), "", 1);   /* "": its 0 byte */
+    h = weft_names_hash_more(weft_names_hash_more(h, r, lr), "", 1);
+    h = weft_names_hash_more(weft_names_hash_more(h, t, lt), "", 1);
     return mix64(h ^ mix64(seed));
 }
 
@@ -158,7 +147,8 @@ weft_err weft_split_holdout(const weft_graph *g, double frac_valid, double frac_
         if (!undirected || e->s <= e->t) {
             if (undirected && e->s != e->t)
                 partner[i] = find_reverse(g, i);
-            units[n_units++] = (struct keyed_unit){ unit_key(&nodes, &rels, e, undirected, seed), i };
+            uint64_t key = unit_key(&nodes, &rels, e, undirected, seed);
+            units[n_units++] = (struct keyed_unit){ key, i };
         }
     }
     qsort(units, n_units, sizeof *units, cmp_keyed);

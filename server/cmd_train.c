@@ -766,8 +766,9 @@ static json_t *split_json(const struct train_opts *o, const struct inputs *in, u
     return s;
 }
 
-static json_t *build_manifest(const struct train_opts *o, const struct inputs *in, const struct results *res, json_t *curve,
-                              json_t *inputs, json_t *model)
+static json_t *build_manifest(const struct train_opts *o, const struct inputs *in,
+                              const struct results *res, json_t *curve, json_t *inputs,
+                              json_t *model)
 {
     const weft_graph *g = in->g;
     weft_names_view rel = weft_names_as_view(&g->relations);
@@ -817,11 +818,8 @@ static weft_err put_link(void *ctx, weft_store_writer *w, json_t *manifest, weft
     const struct link_put *lp = ctx;
     weft_link_model model = weft_link_params_model(lp->params);
     weft_err rc = weft_snapshot_put_link(w, manifest, lp->g, &model, lp->is_probability, err);
-    if (rc == WEFT_OK && lp->params->state) {
-        size_t rel_rows = model.relation ? model.n_relations * (model.has_reciprocal ? 2 : 1) : 0;
-        rc = weft_snapshot_put_optimizer_state(w, lp->params->state, model.n_entities + rel_rows,
-                                               err);
-    }
+    if (rc == WEFT_OK && lp->params->state)
+        rc = weft_snapshot_put_optimizer_state(w, &model, lp->params->state, err);
     if (rc == WEFT_OK)
         rc = weft_link_index_put(w, manifest, lp->index, err);
     if (rc == WEFT_OK && lp->labels)

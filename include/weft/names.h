@@ -39,6 +39,10 @@ typedef struct weft_names {
 /** 64-bit FNV-1a of @p s[0..len): the index hash, fixed forever because it is stored. */
 uint64_t weft_names_hash(const char *s, size_t len);
 
+/** FNV-1a continued over @p s[0..len) from @p h (a hash of the bytes before them):
+ * weft_names_hash(ab) == weft_names_hash_more(weft_names_hash(a), b). */
+uint64_t weft_names_hash_more(uint64_t h, const char *s, size_t len);
+
 /** Make @p t an empty table. @return WEFT_OK, WEFT_ERR_NOMEM */
 weft_err weft_names_init(weft_names *t, weft_error *err);
 /** Release @p t's memory; NULL does nothing. */

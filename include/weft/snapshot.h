@@ -104,13 +104,13 @@ weft_err weft_snapshot_put_link(weft_store_writer *w, json_t *manifest, const we
                                 const weft_link_model *m, bool is_probability, weft_error *err);
 
 /**
- * Write the optimiser state of a link model's rows (weft_link_params.state: @p rows floats,
- * the model's nodes then its relation rows) as blob "optimizer_state", which
- * weft_snapshot_link_view() reads back as weft_link_view.state for a later warm start.
+ * Write the optimiser state of @p m's rows (weft_link_params.state: one float per node, then
+ * per relation row) as blob "optimizer_state", which weft_snapshot_link_view() reads back as
+ * weft_link_view.state for a later warm start.
  * @return WEFT_OK and the codes of weft_store_writer_put()
  */
-weft_err weft_snapshot_put_optimizer_state(weft_store_writer *w, const float *state,
-                                           size_t rows, weft_error *err);
+weft_err weft_snapshot_put_optimizer_state(weft_store_writer *w, const weft_link_model *m,
+                                           const float *state, weft_error *err);
 
 /**
  * The label model of a snapshot (a GCN over the node table) as read-only views into the map,
