@@ -35,7 +35,7 @@ $(BUILD)/%.o: %.c
 	$(CC) $(CPPFLAGS) $(WARN) $(CFLAGS) -c $< -o $@
 
 # The dense training loops need the vectoriser's full cost model (include/weft/kernels.h).
-$(BUILD)/core/kernels.o $(BUILD)/core/gemm.o $(BUILD)/core/sparse.o $(BUILD)/core/model_gcn.o $(BUILD)/core/topk.o $(BUILD)/core/index.o: CFLAGS += -O3
+$(BUILD)/core/kernels.o $(BUILD)/core/gemm.o $(BUILD)/core/sparse.o $(BUILD)/core/model_gcn.o $(BUILD)/core/topk.o $(BUILD)/core/index.o $(BUILD)/core/index_pq.o: CFLAGS += -O3
 
 $(BUILD)/libweft.a: $(CORE_OBJ)
 	@mkdir -p $(dir $@)

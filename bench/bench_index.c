@@ -132,7 +132,7 @@ int main(int argc, char **argv)
     /* clustered */
     weft_index_ivf_arrays ivf;
     t0 = now();
-    if (weft_index_ivf_build(e, n, d, 0, 10, seed, 1, &ivf, &err) != WEFT_OK) {
+    if (weft_index_ivf_build(e, n, d, 0, 10, seed, 1, WEFT_INDEX_LISTS_INT8, &ivf, &err) != WEFT_OK) {
         fprintf(stderr, "bench_index: %s\n", err.msg);
         return 1;
     }

@@ -5,7 +5,8 @@
  * byte = code + 128 (so the sum of byte x q8 is what VNNI's unsigned-by-signed product
  * gives, and the offset costs one subtraction per row). Rows are scored 16 at a time, in
  * the blocked layout of include/weft/index.h (a block's 16 sums build up in the 16 lanes of
- * one register, four values of each row per instruction), and a block's scores are compared with the candidate selection's bar before any is offered, as
+ * one register, four values of each row per instruction), and a block's scores are compared
+ * with the candidate selection's bar before any is offered, as
  * in core/topk.c. The candidates are then re-scored with weft_kernel_dot, so the scores
  * returned, and the order, are those of the exact scan; a list differs from the exact one
  * only where a row of the exact top k was not among the candidates. */
@@ -16,6 +17,7 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "index_pq.h"
 #include "internal.h"
 #include "weft/alloc.h"
 #include "weft/gemm.h"
@@ -85,27 +87,6 @@ struct query8 {
     int32_t offset;      /* 128 x sum of the codes: subtracted from each byte x code sum */
 };
 
-static bool type_passes(const weft_index_filter *f, uint32_t id)
-{
-    return !f || !f->type_of || f->type_of[id] == f->type;
-}
-
-/* Offer row @p id with approximate score @p s to the candidates: the type first (one load),
- * the exclusion search only for rows that would enter. */
-static void offer(weft_topk *t, const weft_index_filter *f, uint32_t id, float s)
-{
-    if (type_passes(f, id) && weft_topk_would_enter(t, id, s)
-        && !weft_topk_is_excluded(f ? f->ex : NULL, id))
-        weft_topk_push(t, id, s);
-}
-
-/* The lowest approximate score that may still enter @p t (candidates come in any id order,
- * so a score equal to the worst kept one is let through to weft_topk_would_enter). */
-static float bar_of(const weft_topk *t)
-{
-    return t->n < t->k ? -INFINITY : t->score[0];
-}
-
 /* What a scan offers from: positions [p0, p1) of the codes, each position p the row
  * row_id[p] (or p, when row_id is NULL). */
 struct scan_range {
@@ -148,8 +129,8 @@ static void scan_portable(const uint8_t *code, const float *scale, size_t d,
         size_t hi = (b + 1) * BLOCK < r->p1 ? (b + 1) * BLOCK : r->p1;
         for (size_t p = lo; p < hi; p++) {
             float s = (float)(sums[p - b * BLOCK] - q->offset) * (scale[p] * q->sq);
-            if (s >= bar_of(t))   /* a NaN scale: never >= */
-                offer(t, f, row_at(r, p), s);
+            if (s >= weft_index_bar(t))   /* a NaN scale: never >= */
+                weft_index_offer(t, f, row_at(r, p), s);
         }
     }
 }
@@ -178,7 +159,7 @@ VNNI static void scan_vnni(const uint8_t *code, const float *scale, size_t d,
     size_t g4 = groups & ~(size_t)3;
     const __m512i offset = _mm512_set1_epi32(q->offset);
     const __m512 sq = _mm512_set1_ps(q->sq);
-    __m512 bar = _mm512_set1_ps(bar_of(t));
+    __m512 bar = _mm512_set1_ps(weft_index_bar(t));
     for (size_t b = r->p0 / BLOCK; b * BLOCK < r->p1; b++) {
         const uint8_t *blk = code + b * bytes;
         __m512i a0 = _mm512_setzero_si512(), a1 = a0, a2 = a0, a3 = a0;
@@ -207,9 +188,9 @@ VNNI static void scan_vnni(const uint8_t *code, const float *scale, size_t d,
             _mm512_storeu_ps(v, s);
             for (unsigned bits = pass; bits; bits &= bits - 1) {
                 unsigned lane = (unsigned)__builtin_ctz(bits);
-                offer(t, f, row_at(r, b * BLOCK + lane), v[lane]);
+                weft_index_offer(t, f, row_at(r, b * BLOCK + lane), v[lane]);
             }
-            bar = _mm512_set1_ps(bar_of(t));
+            bar = _mm512_set1_ps(weft_index_bar(t));
         }
     }
 }
@@ -217,13 +198,23 @@ VNNI static void scan_vnni(const uint8_t *code, const float *scale, size_t d,
 /* Set by weft_index_allow_native(false): the one mutable global of this module. */
 static atomic_bool native_allowed = true;
 
+bool weft_index_native_allowed(void)
+{
+    return atomic_load(&native_allowed);
+}
+
 static bool use_vnni(void)
 {
-    return atomic_load(&native_allowed) && __builtin_cpu_supports("avx512vnni")
+    return weft_index_native_allowed() && __builtin_cpu_supports("avx512vnni")
            && __builtin_cpu_supports("avx512bw");
 }
 
 #else
+
+bool weft_index_native_allowed(void)
+{
+    return false;
+}
 
 static bool use_vnni(void)
 {
@@ -290,17 +281,22 @@ static bool query8_init(struct query8 *qq, const float *q, size_t d, bool *is_fi
     return true;
 }
 
+/* Re-score rows @p cand[0 .. n) exactly into the best k, best first. */
+static size_t rescore_ids(const uint32_t *cand, size_t n, const float *e, size_t d,
+                          const float *q, size_t k, uint32_t *id, float *score)
+{
+    weft_topk t;
+    weft_topk_init(&t, k, id, score);
+    for (size_t i = 0; i < n; i++)
+        weft_topk_push(&t, cand[i], weft_kernel_dot(e + (size_t)cand[i] * d, q, d));
+    return weft_topk_finish(&t);
+}
+
 /* Re-score the candidates in @p cand exactly into the best k, best first. */
 static size_t rescore(const weft_topk *cand, const float *e, size_t d, const float *q,
                       size_t k, uint32_t *id, float *score)
 {
-    weft_topk t;
-    weft_topk_init(&t, k, id, score);
-    for (size_t i = 0; i < cand->n; i++) {
-        uint32_t r = cand->id[i];
-        weft_topk_push(&t, r, weft_kernel_dot(e + (size_t)r * d, q, d));
-    }
-    return weft_topk_finish(&t);
+    return rescore_ids(cand->id, cand->n, e, d, q, k, id, score);
 }
 
 /* Every row that passes @p f, scored exactly: what a non-finite query gets. */
@@ -310,7 +306,8 @@ static size_t exact_filtered(const float *e, size_t n, size_t d, const float *q,
     weft_topk t;
     weft_topk_init(&t, k, id, score);
     for (size_t r = 0; r < n; r++)
-        if (type_passes(f, (uint32_t)r) && !weft_topk_is_excluded(f ? f->ex : NULL, (uint32_t)r))
+        if (weft_index_type_passes(f, (uint32_t)r)
+            && !weft_topk_is_excluded(f ? f->ex : NULL, (uint32_t)r))
             weft_topk_push(&t, (uint32_t)r, weft_kernel_dot(e + r * d, q, d));
     return weft_topk_finish(&t);
 }
@@ -518,6 +515,9 @@ void weft_index_ivf_fini(weft_index_ivf_arrays *a)
     free(a->list_off);
     free(a->row_id);
     free(a->code);
+    free(a->codebook);
+    free(a->list_block);
+    free(a->pq_code);
     memset(a, 0, sizeof *a);
 }
 
@@ -534,14 +534,15 @@ static void augment(const float *x, size_t d, double max2, float *out)
 }
 
 weft_err weft_index_ivf_build(const float *e, size_t n, size_t d, size_t n_lists, size_t iters,
-                              uint64_t seed, size_t n_threads, weft_index_ivf_arrays *out,
-                              weft_error *err)
+                              uint64_t seed, size_t n_threads, weft_index_list_codes codes,
+                              weft_index_ivf_arrays *out, weft_error *err)
 {
     memset(out, 0, sizeof *out);
     if (n == 0 || n >= UINT32_MAX)
         return weft_error_set(err, WEFT_ERR_INVALID, "a clustered index needs 1 to 2^32 - 1 "
                               "rows, not %zu", n);
-    size_t nl = n_lists ? n_lists : (size_t)(4.0 * sqrt((double)n));
+    bool is_pq = codes == WEFT_INDEX_LISTS_PQ4;
+    size_t nl = n_lists ? n_lists : (size_t)((is_pq ? 0.5 : 4.0) * sqrt((double)n));
     nl = nl < 1 ? 1 : nl > n ? n : nl;
     size_t da = d + 1, n_sample = 64 * nl < n ? 64 * nl : n;
 
@@ -591,10 +592,12 @@ weft_err weft_index_ivf_build(const float *e, size_t n, size_t d, size_t n_lists
     out->centroid = weft_alloc_array(nl, da * sizeof *out->centroid);
     out->list_off = weft_alloc_array(nl + 1, sizeof *out->list_off);
     out->row_id = weft_alloc_array(n, sizeof *out->row_id);
-    out->code = weft_alloc_array(weft_index_code_bytes(n, d ? d : 1), 1);
-    out->scale = weft_alloc_array(n, sizeof *out->scale);
-    if (!out->centroid || !out->list_off || !out->row_id || !out->code
-        || !out->scale) {
+    if (!is_pq) {
+        out->code = weft_alloc_array(weft_index_code_bytes(n, d ? d : 1), 1);
+        out->scale = weft_alloc_array(n, sizeof *out->scale);
+    }
+    if (!out->centroid || !out->list_off || !out->row_id
+        || (!is_pq && (!out->code || !out->scale))) {
         rc = weft_error_set(err, WEFT_ERR_NOMEM, "out of memory building a clustered index");
         goto done;
     }
@@ -616,11 +619,15 @@ weft_err weft_index_ivf_build(const float *e, size_t n, size_t d, size_t n_lists
     for (size_t l = nl; l > 0; l--)
         out->list_off[l] = out->list_off[l - 1];
     out->list_off[0] = 0;
-    encode_rows(e, n, d, out->row_id, out->code, out->scale);
-    out->ivf = (weft_index_ivf){
-        .n = n, .d = d, .n_lists = nl, .centroid = out->centroid, .list_off = out->list_off, .row_id = out->row_id,
-        .codes = { .n = n, .d = d, .code = out->code, .scale = out->scale },
-    };
+    out->ivf = (weft_index_ivf){ .n = n, .d = d, .n_lists = nl, .centroid = out->centroid,
+                                 .list_off = out->list_off, .row_id = out->row_id };
+    if (is_pq)
+        rc = weft_index_pq_encode(e, seed, out, err);
+    else {
+        encode_rows(e, n, d, out->row_id, out->code, out->scale);
+        out->ivf.codes = (weft_index_codes){ .n = n, .d = d, .code = out->code,
+                                             .scale = out->scale };
+    }
 done:
     free(perm);
     free(xa);
@@ -654,6 +661,9 @@ weft_err weft_index_ivf_search(const weft_index_ivf *ix, const float *e, const f
     float *best_s = weft_alloc_array(np, sizeof *best_s);
     uint32_t *best = weft_alloc_array(np, sizeof *best);
     struct cands cand = { 0 };
+    weft_index_pq_query pq = { 0 };
+    weft_index_pq_cands pq_cand = { 0 };
+    bool is_pq = ix->list_codes == WEFT_INDEX_LISTS_PQ4;
     weft_err rc = WEFT_OK;
     if (!qa || !best_s || !best) {
         rc = weft_error_set(err, WEFT_ERR_NOMEM, "out of memory for a query");
@@ -661,6 +671,11 @@ weft_err weft_index_ivf_search(const weft_index_ivf *ix, const float *e, const f
     }
     if ((rc = cands_init(&cand, k, oversample, err)) != WEFT_OK)
         goto done;
+    if (is_pq && (!weft_index_pq_query_init(&pq, &ix->pq, q, d)
+                  || !weft_index_pq_cands_init(&pq_cand, cand.t.k))) {
+        rc = weft_error_set(err, WEFT_ERR_NOMEM, "out of memory for a query");
+        goto done;
+    }
     memcpy(qa, q, d * sizeof *qa);
     double q2 = 0.0;
     for (size_t j = 0; j < d; j++)
@@ -668,14 +683,25 @@ weft_err weft_index_ivf_search(const weft_index_ivf *ix, const float *e, const f
     qa[d] = (float)sqrt(q2);
     size_t n_best = weft_topk_scan(ix->centroid, ix->n_lists, d + 1, qa, np, NULL, best, best_s);
     for (size_t b = 0; b < n_best; b++) {
+        if (is_pq) {   /* q.c = the list's score less |q| times its augmented coordinate */
+            float qc = best_s[b] - qa[d] * ix->centroid[(size_t)best[b] * (d + 1) + d];
+            weft_index_pq_scan_list(ix, &pq, best[b], qc, f, &pq_cand);
+            continue;
+        }
         struct scan_range list = { .p0 = (size_t)ix->list_off[best[b]],
                                    .p1 = (size_t)ix->list_off[best[b] + 1],
                                    .row_id = ix->row_id };
         scan_codes(ix->codes.code, ix->codes.scale, d, &qq, &list, f, &cand.t);
     }
-    *n_out = rescore(&cand.t, e, d, q, k, id, score);
+    if (is_pq) {
+        weft_index_pq_cands_finish(&pq_cand);
+        *n_out = rescore_ids(pq_cand.id, pq_cand.n, e, d, q, k, id, score);
+    } else
+        *n_out = rescore(&cand.t, e, d, q, k, id, score);
 done:
     cands_fini(&cand);
+    weft_index_pq_query_fini(&pq);
+    weft_index_pq_cands_fini(&pq_cand);
     free(qa);
     free(best_s);
     free(best);

@@ -86,6 +86,7 @@ struct train_opts {
     /* the link model's index (cmd_train_index.c) */
     weft_link_index_settings index;
     bool is_index_tuned;          /* an --index-* setting was given */
+    bool is_oversample_given;     /* --index-oversample was: --index keeps it */
 };
 
 /**

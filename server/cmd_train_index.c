@@ -11,19 +11,25 @@
 void cmd_train_index_help(void)
 {
     weft_link_index_settings d = weft_link_index_defaults(WEFT_LINK_INDEX_IVF);
+    weft_link_index_settings pq = weft_link_index_defaults(WEFT_LINK_INDEX_IVF_PQ);
     printf("the index of a link model (how the service finds the top k; every returned score\n"
            "is exact, the index only picks the candidates):\n"
            "  --index KIND       exact (every query scans every row), int8 (a quarter of the\n"
-           "                     bytes scanned, then the best k x oversample re-scored) or ivf\n"
-           "                     (k-means lists; only the lists nearest the query are scanned)\n"
-           "                     (default exact)\n"
-           "  --index-oversample N  candidates re-scored per result, 1 to 1000 (default %zu)\n"
-           "  --index-lists N    ivf: lists (default 4 sqrt(nodes))\n"
-           "  --index-nprobe N   ivf: lists scanned per query (default: the smallest power of\n"
-           "                     two reaching halfway from the floor to recall 1 on the probes)\n"
+           "                     bytes scanned, then the best k x oversample re-scored), ivf\n"
+           "                     (k-means lists of int8 codes; only the lists nearest the query\n"
+           "                     are scanned) or ivf-pq (k-means lists of 4-bit product codes,\n"
+           "                     a sixteenth of the bytes: for rows without cluster structure,\n"
+           "                     where most lists must be scanned) (default exact)\n"
+           "  --index-oversample N  candidates re-scored per result, 1 to 1000 (default %zu;\n"
+           "                     ivf-pq %zu)\n"
+           "  --index-lists N    ivf, ivf-pq: lists (default 4 sqrt(nodes); ivf-pq\n"
+           "                     sqrt(nodes) / 2)\n"
+           "  --index-nprobe N   ivf, ivf-pq: lists scanned per query (default: the smallest\n"
+           "                     power of two reaching halfway from the floor to recall 1 on\n"
+           "                     the probes)\n"
            "  --index-recall-floor X  the gate refuses an index whose recall@10 against the\n"
            "                     exact scan, on %d fixed probe queries, is below X (default %g)\n",
-           d.oversample, WEFT_LINK_INDEX_PROBES, d.recall_floor);
+           d.oversample, pq.oversample, WEFT_LINK_INDEX_PROBES, d.recall_floor);
 }
 
 int cmd_train_index_parse(int argc, char **argv, int *i, struct train_opts *o, int *rc)
@@ -37,8 +43,10 @@ int cmd_train_index_parse(int argc, char **argv, int *i, struct train_opts *o, i
         if (bad)
             *rc = CMD_USAGE;
         else if (!weft_link_index_kind_parse(v, &o->index.kind))
-            *rc = cmd_usage_error(SUB, "--index: unknown value '%s' (known: exact, int8, ivf)",
-                                  v);
+            *rc = cmd_usage_error(SUB, "--index: unknown value '%s' (known: exact, int8, ivf, "
+                                  "ivf-pq)", v);
+        else if (!o->is_oversample_given)
+            o->index.oversample = weft_link_index_defaults(o->index.kind).oversample;
         return 1;
     }
     static const struct {
@@ -53,9 +61,10 @@ int cmd_train_index_parse(int argc, char **argv, int *i, struct train_opts *o, i
         if ((v = cmd_opt_value(SUB, argc, argv, i, counts[k].flag, &bad)) || bad) {
             if (bad || !cmd_parse_u64(SUB, counts[k].flag, v, counts[k].min, counts[k].max, &u))
                 *rc = CMD_USAGE;
-            else if (k == 0)
+            else if (k == 0) {
                 o->index.oversample = (size_t)u;
-            else if (k == 1)
+                o->is_oversample_given = true;
+            } else if (k == 1)
                 o->index.n_lists = (size_t)u;
             else
                 o->index.nprobe = (size_t)u;
@@ -78,7 +87,7 @@ int cmd_train_index_check(const struct train_opts *o)
     if (o->index.kind != WEFT_LINK_INDEX_EXACT && o->task == CMD_TRAIN_GCN)
         return cmd_usage_error(SUB, "--index is for link models; --model gcn has none");
     if (o->is_index_tuned && o->index.kind == WEFT_LINK_INDEX_EXACT)
-        return cmd_usage_error(SUB, "the --index-* settings need --index int8 or ivf");
+        return cmd_usage_error(SUB, "the --index-* settings need --index int8, ivf or ivf-pq");
     return CMD_OK;
 }
 
@@ -92,7 +101,7 @@ weft_err cmd_train_index_build(const struct train_opts *o, const weft_link_model
     if (rc != WEFT_OK || out->kind == WEFT_LINK_INDEX_EXACT)
         return rc;
     char lists[96] = "";
-    if (out->kind == WEFT_LINK_INDEX_IVF)
+    if (weft_link_index_is_clustered(out->kind))
         snprintf(lists, sizeof lists, ", %zu lists, %zu scanned per query", out->ivf.ivf.n_lists,
                  out->nprobe);
     printf("index: %s%s, oversample %zu: recall@10 %.4f against the exact scan on %zu probe "

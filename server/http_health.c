@@ -652,7 +652,7 @@ static void check_index(const http_model *m, const json_t *manifest, http_check 
     double floor = json_number_value(json_object_get(rec, "recall_floor"));
     json_int_t probes = json_integer_value(json_object_get(rec, "probe_queries"));
     char lists[80] = "";
-    if (m->index.kind == WEFT_LINK_INDEX_IVF)
+    if (weft_link_index_is_clustered(m->index.kind))
         snprintf(lists, sizeof lists, ", %zu of %zu lists scanned per query", m->index.nprobe,
                  m->index.ivf.n_lists);
     http_check_status st = m->index.recall >= floor ? HTTP_CHECK_OK : HTTP_CHECK_FAIL;

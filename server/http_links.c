@@ -281,7 +281,7 @@ static weft_err rank(const http_model *m, const struct predict_query *q, struct 
         weft_index_filter f = { .ex = &ex, .type_of = q->has_type ? m->types.of_node : NULL,
                                 .type = q->type };
         const weft_link_index_view *ix = &m->index;
-        if (ix->kind == WEFT_LINK_INDEX_IVF)
+        if (weft_link_index_is_clustered(ix->kind))
             return http_scan_ivf(&ix->ivf, v->entity, ix->nprobe, ix->oversample, w->query,
                                  q->k, &f, w->id, w->score, n, err);
         return http_scan_int8(&ix->codes, v->entity, ix->oversample, w->query, q->k, &f,

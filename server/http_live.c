@@ -238,7 +238,7 @@ static void warm(const http_model *m)
         if (ix->kind == WEFT_LINK_INDEX_INT8)
             weft_index_int8_search(&ix->codes, v->entity, q, K, ix->oversample, NULL, id, score,
                                    &n, &err);
-        else if (ix->kind == WEFT_LINK_INDEX_IVF)
+        else if (weft_link_index_is_clustered(ix->kind))
             weft_index_ivf_search(&ix->ivf, v->entity, q, K, ix->nprobe, ix->oversample, NULL,
                                   id, score, &n, &err);
     }

@@ -29,20 +29,27 @@
 typedef enum weft_link_index_kind {
     WEFT_LINK_INDEX_EXACT = 0,   /**< none: every query scans every row */
     WEFT_LINK_INDEX_INT8 = 1,
-    WEFT_LINK_INDEX_IVF = 2
+    WEFT_LINK_INDEX_IVF = 2,     /**< k-means lists of int8 codes */
+    WEFT_LINK_INDEX_IVF_PQ = 3   /**< k-means lists of 4-bit product codes */
 } weft_link_index_kind;
 
-/** "exact", "int8", "ivf"; NULL for an unknown kind. */
+/** "exact", "int8", "ivf", "ivf-pq"; NULL for an unknown kind. */
 const char *weft_link_index_kind_name(weft_link_index_kind kind);
 
 /** Parse a kind name. @return true and *@p out when known. */
 bool weft_link_index_kind_parse(const char *name, weft_link_index_kind *out);
 
+/** True for the clustered kinds (ivf, ivf-pq): lists, nprobe, weft_index_ivf_search. */
+static inline bool weft_link_index_is_clustered(weft_link_index_kind kind)
+{
+    return kind == WEFT_LINK_INDEX_IVF || kind == WEFT_LINK_INDEX_IVF_PQ;
+}
+
 /** What to build. */
 typedef struct weft_link_index_settings {
     weft_link_index_kind kind;
-    size_t oversample;       /**< candidates re-scored per result (>= 1; default 4) */
-    size_t n_lists;          /**< ivf: lists (0: 4 sqrt(n)) */
+    size_t oversample;       /**< candidates re-scored per result (>= 1; default 4, ivf-pq 16) */
+    size_t n_lists;          /**< ivf: lists (0: 4 sqrt(n); ivf-pq: sqrt(n) / 2) */
     size_t nprobe;           /**< ivf: lists scanned per query (0: tuned on the probe set) */
     size_t iters;            /**< ivf: k-means rounds (default 10) */
     double recall_floor;     /**< the gate refuses an index measured below it (default 0.95) */
@@ -79,8 +86,9 @@ weft_err weft_link_index_build(const weft_link_model *m, const weft_link_index_s
 void weft_link_index_fini(weft_link_index *ix);
 
 /**
- * The manifest record of @p ix: {"kind", "code_layout", "oversample", ["lists", "nprobe",] "recall_at_10",
- * "recall_floor", "probe_queries", "build_seconds", "bytes"}. A new reference, or NULL when
+ * The manifest record of @p ix: {"kind", "code_layout", "oversample", ["lists", "nprobe",]
+ * ["subspaces", "subspace_dims",] "recall_at_10", "recall_floor", "probe_queries",
+ * "build_seconds", "bytes"}: lists and nprobe for the clustered kinds, subspaces for ivf-pq. A new reference, or NULL when
  * out of memory.
  */
 json_t *weft_link_index_json(const weft_link_index *ix);
@@ -99,7 +107,7 @@ typedef struct weft_link_index_view {
     size_t oversample, nprobe;
     double recall;
     weft_index_codes codes;      /**< int8 */
-    weft_index_ivf ivf;          /**< ivf */
+    weft_index_ivf ivf;          /**< ivf, ivf-pq */
 } weft_link_index_view;
 
 /**

@@ -126,6 +126,46 @@ check "/v1/health reports the index's recall against its floor" test "$(json_get
     "[(c['status'], c['value'] == d2['link']['index']['recall_at_10'], c['threshold']) for c in d['checks'] if c['name'] == 'index_recall'] if (d2 := json.load(open('$E2E_TMP/m2.json'))) else 0")" = "[('ok', True, 0.95)]"
 stop_server
 
+# 2b. The clustered index with product-quantised lists: its record, and with room for every
+# node among the candidates (10 x 1000 > Cora's 2,708 nodes) the exact answers, filters
+# included; with its defaults, answers close to the exact ones.
+S4="$E2E_TMP/ivfpq"
+check "train --index ivf-pq stores a clustered index of product codes" \
+    train "$S4" --index ivf-pq --index-oversample 1000
+"$WEFT" snapshots show 1 --store "$S4" --json >"$E2E_TMP/m4.json"
+check "the manifest names its kind, layout, lists (sqrt(nodes) / 2) and subspaces (32 of 2 values for dim 64)" \
+    test "$(json_get "$E2E_TMP/m4.json" "tuple(d['link']['index'][f] for f in ('kind', 'code_layout', 'lists', 'subspaces', 'subspace_dims', 'oversample'))")" = "('ivf-pq', 'pq4-blocks32x4', 26, 32, 2, 1000)"
+start_server "$S4" || finish
+ok=0
+for n in n0 n7 n33 n150 n999 n2000; do
+    compare "source=$n&k=10" ivf-pq && compare "source=$n&k=25&candidate_type=green" ivf-pq &&
+        compare "source=$n&k=10&include_known=true" ivf-pq && ok=$((ok + 1))
+done
+check "ivf-pq answers equal the exact scan's when every node is a candidate (6 nodes, plain, typed, known links kept)" \
+    test "$ok" -eq 6
+stop_server
+S5="$E2E_TMP/ivfpq-default"
+check "train --index ivf-pq with its defaults (oversample 16)" train "$S5" --index ivf-pq
+check "train prints what it built" grep -q "^index: ivf-pq, 26 lists, .* oversample 16: recall@10" "$E2E_TMP/train.out"
+start_server "$S5" || finish
+/usr/bin/python3 - "$BASE" >"$E2E_TMP/overlap-pq.txt" <<'PY'
+import json, sys, urllib.request
+base, total = sys.argv[1], 0.0
+nodes = ["n%d" % (37 * i) for i in range(60)]
+for n in nodes:
+    a = json.load(urllib.request.urlopen("%s/v1/links/predict?source=%s&k=10" % (base, n)))
+    b = json.load(urllib.request.urlopen("%s/v1/links/predict?source=%s&k=10&exact=true" % (base, n)))
+    assert a["path"] == "ivf-pq" and b["path"] == "exact"
+    exact = {p["target"]: p["score"] for p in b["predictions"]}
+    for p in a["predictions"]:   # every score returned is the exact one
+        assert p["target"] not in exact or p["score"] == exact[p["target"]]
+    total += len(exact.keys() & {p["target"] for p in a["predictions"]}) / max(1, len(exact))
+print("%.3f" % (total / len(nodes)))
+PY
+check "ivf-pq answers keep most of the exact top 10 over 60 nodes ($(cat "$E2E_TMP/overlap-pq.txt"))" \
+    awk -v r="$(cat "$E2E_TMP/overlap-pq.txt")" 'BEGIN { exit !(r >= 0.9) }'
+stop_server
+
 # 3. The gate: an index below its floor is refused; the live snapshot stays.
 S3="$E2E_TMP/gate"
 train "$S3"
@@ -141,5 +181,5 @@ check "version 1 stays live" test "$(json_get "$E2E_TMP/list.json" \
 check "--index-lists without --index is a usage error (exit 2)" sh -c \
     "'$WEFT' train --store '$E2E_TMP/x' --edges '$D/edges.tsv' --index-lists 4 >/dev/null 2>&1; test \$? -eq 2"
 check "an unknown --index is a usage error naming the kinds" sh -c \
-    "'$WEFT' train --store '$E2E_TMP/x' --edges '$D/edges.tsv' --index fast 2>&1 | grep -q 'known: exact, int8, ivf'"
+    "'$WEFT' train --store '$E2E_TMP/x' --edges '$D/edges.tsv' --index fast 2>&1 | grep -q 'known: exact, int8, ivf, ivf-pq'"
 finish

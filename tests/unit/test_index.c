@@ -290,7 +290,8 @@ Test(index, ivf_lists_partition_the_rows)
     float *e = clustered_rows(N, D, 12, 11);
     weft_index_ivf_arrays a;
     weft_error err;
-    cr_assert_eq(weft_index_ivf_build(e, N, D, 0, 8, 1, 1, &a, &err), WEFT_OK, "%s", err.msg);
+    cr_assert_eq(weft_index_ivf_build(e, N, D, 0, 8, 1, 1, WEFT_INDEX_LISTS_INT8, &a,
+                                       &err), WEFT_OK, "%s", err.msg);
     const weft_index_ivf *ix = &a.ivf;
     cr_assert_eq(ix->n_lists, (size_t)(4.0 * sqrt(N)), "4 sqrt(n) lists by default");
     cr_assert_eq(ix->list_off[0], 0);
@@ -318,7 +319,8 @@ Test(index, ivf_recall_and_every_list_is_the_int8_search)
     float *e = clustered_rows(N, D, 30, 12), *q = clustered_rows(Q, D, 30, 13);
     weft_index_ivf_arrays a;
     weft_error err;
-    cr_assert_eq(weft_index_ivf_build(e, N, D, 0, 10, 2, 1, &a, &err), WEFT_OK, "%s", err.msg);
+    cr_assert_eq(weft_index_ivf_build(e, N, D, 0, 10, 2, 1, WEFT_INDEX_LISTS_INT8, &a,
+                                       &err), WEFT_OK, "%s", err.msg);
     struct codes c = encode(e, N, D);
     double sum_few = 0.0;
     for (size_t j = 0; j < Q; j++) {
@@ -354,7 +356,8 @@ Test(index, ivf_boundaries)
         memcpy(e + i * D, base + (i % 4) * D, D * sizeof *e);
     weft_index_ivf_arrays a;
     weft_error err;
-    cr_assert_eq(weft_index_ivf_build(e, N, D, 16, 5, 3, 1, &a, &err), WEFT_OK, "%s", err.msg);
+    cr_assert_eq(weft_index_ivf_build(e, N, D, 16, 5, 3, 1, WEFT_INDEX_LISTS_INT8, &a,
+                                       &err), WEFT_OK, "%s", err.msg);
     size_t n_empty = 0;
     for (size_t l = 0; l < a.ivf.n_lists; l++)
         n_empty += a.ivf.list_off[l] == a.ivf.list_off[l + 1];
@@ -373,14 +376,16 @@ Test(index, ivf_boundaries)
                  WEFT_OK);
     cr_assert_eq(n, 0);
     weft_index_ivf_fini(&a);
-    cr_assert_eq(weft_index_ivf_build(e, 1, D, 0, 5, 3, 1, &a, &err), WEFT_OK, "%s", err.msg);
+    cr_assert_eq(weft_index_ivf_build(e, 1, D, 0, 5, 3, 1, WEFT_INDEX_LISTS_INT8, &a,
+                                       &err), WEFT_OK, "%s", err.msg);
     cr_assert_eq(a.ivf.n_lists, 1);
     cr_assert_eq(weft_index_ivf_search(&a.ivf, e, base, K, 3, 4, NULL, id, score, &n, &err),
                  WEFT_OK);
     cr_assert_eq(n, 1);
     cr_assert_eq(id[0], 0);
     weft_index_ivf_fini(&a);
-    cr_assert_eq(weft_index_ivf_build(e, 0, D, 0, 5, 3, 1, &a, &err), WEFT_ERR_INVALID);
+    cr_assert_eq(weft_index_ivf_build(e, 0, D, 0, 5, 3, 1, WEFT_INDEX_LISTS_INT8, &a,
+                                       &err), WEFT_ERR_INVALID);
     free(base);
     free(e);
 }
@@ -413,7 +418,8 @@ Test(index, native_and_portable_scans_agree)
         /* lists of a clustered index begin and end inside blocks of 16 */
         weft_index_ivf_arrays ivf;
         weft_error err;
-        cr_assert_eq(weft_index_ivf_build(e, n, d, 37, 5, 3, 1, &ivf, &err), WEFT_OK);
+        cr_assert_eq(weft_index_ivf_build(e, n, d, 37, 5, 3, 1, WEFT_INDEX_LISTS_INT8, &ivf,
+                                           &err), WEFT_OK);
         for (size_t j = 0; j < 3; j++) {
             uint32_t a[K], b[K];
             float as[K], bs[K];
