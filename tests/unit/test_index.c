@@ -442,3 +442,224 @@ Test(index, native_and_portable_scans_agree)
         free(q);
     }
 }
+
+/* ---- the clustered index with product-quantised lists (core/index_pq.c) ---- */
+
+static void pq_build(const float *e, size_t n, size_t d, size_t n_lists,
+                     weft_index_ivf_arrays *a)
+{
+    weft_error err;
+    cr_assert_eq(weft_index_ivf_build(e, n, d, n_lists, 5, 3, 1, WEFT_INDEX_LISTS_PQ4, a, &err),
+                 WEFT_OK, "%s", err.msg);
+    cr_assert_eq(a->ivf.list_codes, WEFT_INDEX_LISTS_PQ4);
+}
+
+/* Every row's code in every subspace is the nearest codeword to its residual from its
+ * list's centroid (recomputed here from the layout of include/weft/index.h); padding rows
+ * and subspaces past the row hold 0. Dimensions 7 and 10 leave a half-filled subspace and
+ * padded ones; 1030 has subspaces of 3 values. */
+Test(index, pq_codes_are_the_nearest_codewords)
+{
+    static const size_t dims[] = { 7, 10, 64, 1030 };
+    for (size_t t = 0; t < sizeof dims / sizeof dims[0]; t++) {
+        size_t d = dims[t], n = d > 1000 ? 150 : 700;
+        float *e = random_rows(n, d, 50 + t);
+        weft_index_ivf_arrays a;
+        pq_build(e, n, d, 9, &a);
+        const weft_index_ivf *ix = &a.ivf;
+        const weft_index_pq *pq = &ix->pq;
+        size_t s = pq->sub_dims, n_real = (d + s - 1) / s;
+        cr_assert_eq(s, d > 1024 ? 3 : 2);
+        cr_assert_eq(pq->n_sub % 4, 0);
+        cr_assert_eq(pq->n_sub, (n_real + 3) / 4 * 4);
+        size_t bytes = weft_index_pq_block_bytes(pq->n_sub);
+        for (size_t l = 0; l < ix->n_lists; l++) {
+            size_t rows = (size_t)(ix->list_off[l + 1] - ix->list_off[l]);
+            cr_assert_eq(pq->list_block[l + 1] - pq->list_block[l], (rows + 31) / 32);
+            for (size_t i = 0; i < (size_t)(pq->list_block[l + 1] - pq->list_block[l]) * 32; i++) {
+                const uint8_t *blk = pq->code + (pq->list_block[l] + i / 32) * bytes;
+                const float *x = i < rows ? e + (size_t)ix->row_id[ix->list_off[l] + i] * d : NULL;
+                const float *c = ix->centroid + l * (d + 1);
+                for (size_t m = 0; m < pq->n_sub; m++) {
+                    uint8_t byte = blk[m / 4 * 64 + (m % 4) / 2 * 32 + i % 32];
+                    unsigned got = m % 2 ? byte >> 4 : byte & 15u, want = 0;
+                    if (x && m < n_real) {
+                        float best = INFINITY;
+                        for (unsigned j = 0; j < 16; j++) {
+                            const float *cw = pq->codebook + (m * 16 + j) * s;
+                            float dist = 0.0f;
+                            for (size_t u = 0; u < s; u++) {
+                                float r = m * s + u < d ? x[m * s + u] - c[m * s + u] : 0.0f;
+                                dist += (r - cw[u]) * (r - cw[u]);
+                            }
+                            if (dist < best) {
+                                best = dist;
+                                want = j;
+                            }
+                        }
+                    }
+                    cr_assert_eq(got, want, "d %zu list %zu row %zu subspace %zu", d, l, i, m);
+                }
+            }
+        }
+        weft_index_ivf_fini(&a);
+        free(e);
+    }
+}
+
+/* With k x oversample >= n every row is a candidate: the answer is the exact scan's, ids and
+ * scores, filters included. */
+Test(index, pq_with_every_row_a_candidate_is_the_exact_scan)
+{
+    enum { N = 300, D = 24 };
+    float *e = random_rows(N, D, 61), *q = random_rows(4, D, 62);
+    weft_index_ivf_arrays a;
+    pq_build(e, N, D, 0, &a);
+    uint32_t excl[] = { 3, 17, 40, 41, 200 };
+    weft_topk_exclude ex = { .sorted = excl, .n_sorted = 5 };
+    uint32_t type_of[N];
+    for (size_t i = 0; i < N; i++)
+        type_of[i] = (uint32_t)(i % 3);
+    weft_index_filter fs[2] = { { .ex = &ex }, { .ex = &ex, .type_of = type_of, .type = 2 } };
+    for (size_t j = 0; j < 4; j++)
+        for (size_t v = 0; v < 2; v++) {
+            uint32_t want[K], got[K];
+            float ws[K], gs[K];
+            size_t nw = 0, ng = 0;
+            weft_topk t;
+            weft_topk_init(&t, K, want, ws);
+            for (uint32_t r = 0; r < N; r++)
+                if ((v == 0 || r % 3 == 2) && !weft_topk_is_excluded(&ex, r))
+                    weft_topk_push(&t, r, weft_kernel_dot(e + r * D, q + j * D, D));
+            nw = weft_topk_finish(&t);
+            weft_error err;
+            cr_assert_eq(weft_index_ivf_search(&a.ivf, e, q + j * D, K, a.ivf.n_lists, N, &fs[v],
+                                               got, gs, &ng, &err), WEFT_OK);
+            cr_assert_eq(ng, nw);
+            for (size_t i = 0; i < ng; i++)
+                cr_assert(got[i] == want[i] && gs[i] == ws[i], "query %zu rank %zu", j, i);
+        }
+    weft_index_ivf_fini(&a);
+    free(e);
+    free(q);
+}
+
+/* Recall@10 against the exact scan with weft train's oversample (16), every list scanned:
+ * random rows (no structure at all) and clustered rows. */
+Test(index, pq_recall_on_random_and_clustered_rows)
+{
+    enum { N = 20000, D = 32, Q = 40 };
+    for (int kind = 0; kind < 2; kind++) {
+        float *e = kind ? clustered_rows(N, D, 30, 70) : random_rows(N, D, 71);
+        float *q = kind ? clustered_rows(Q, D, 30, 72) : random_rows(Q, D, 73);
+        weft_index_ivf_arrays a;
+        pq_build(e, N, D, 0, &a);
+        double sum = 0.0;
+        for (size_t j = 0; j < Q; j++) {
+            uint32_t want[K], got[K];
+            float ws[K], gs[K];
+            size_t nw = weft_topk_scan(e, N, D, q + j * D, K, NULL, want, ws), ng = 0;
+            weft_error err;
+            cr_assert_eq(weft_index_ivf_search(&a.ivf, e, q + j * D, K, a.ivf.n_lists, 16, NULL,
+                                               got, gs, &ng, &err), WEFT_OK);
+            for (size_t i = 0; i < ng; i++)   /* every score returned is the exact one */
+                cr_assert_eq(gs[i], weft_kernel_dot(e + (size_t)got[i] * D, q + j * D, D));
+            sum += recall(want, nw, got, ng);
+        }
+        cr_assert_geq(sum / Q, 0.95, "%s rows: recall@10 %.3f", kind ? "clustered" : "random",
+                      sum / Q);
+        weft_index_ivf_fini(&a);
+        free(e);
+        free(q);
+    }
+}
+
+/* Empty lists, k larger than a list and than the rows, every candidate filtered, a one-node
+ * type, one row, and a non-finite row that is never returned. */
+Test(index, pq_boundaries)
+{
+    enum { N = 64, D = 8 };
+    float *base = random_rows(4, D, 81), *e = malloc(N * D * sizeof *e);
+    cr_assert_not_null(e);
+    for (size_t i = 0; i < N; i++)
+        memcpy(e + i * D, base + (i % 4) * D, D * sizeof *e);
+    weft_index_ivf_arrays a;
+    weft_error err;
+    pq_build(e, N, D, 16, &a);
+    size_t n_empty = 0;
+    for (size_t l = 0; l < a.ivf.n_lists; l++)
+        n_empty += a.ivf.list_off[l] == a.ivf.list_off[l + 1];
+    cr_assert_geq(n_empty, 1, "duplicate rows leave lists empty");
+    uint32_t id[N + 8];
+    float score[N + 8];
+    size_t n = 0;
+    cr_assert_eq(weft_index_ivf_search(&a.ivf, e, base, N, 1, 4, NULL, id, score, &n, &err),
+                 WEFT_OK);
+    cr_assert_eq(n, N / 4, "the best list holds the 16 copies of the query's row");
+    cr_assert_eq(weft_index_ivf_search(&a.ivf, e, base, N + 8, a.ivf.n_lists, 4, NULL, id, score,
+                                       &n, &err), WEFT_OK);
+    cr_assert_eq(n, N, "k past the rows: every row once");
+    uint32_t all[N];
+    for (uint32_t i = 0; i < N; i++)
+        all[i] = i;
+    weft_topk_exclude ex = { .sorted = all, .n_sorted = N };
+    weft_index_filter none = { .ex = &ex };
+    cr_assert_eq(weft_index_ivf_search(&a.ivf, e, base, K, a.ivf.n_lists, 4, &none, id, score,
+                                       &n, &err), WEFT_OK);
+    cr_assert_eq(n, 0, "every candidate filtered");
+    uint32_t type_of[N] = { 0 };
+    type_of[37] = 1;
+    weft_index_filter one = { .type_of = type_of, .type = 1 };
+    cr_assert_eq(weft_index_ivf_search(&a.ivf, e, base, K, a.ivf.n_lists, 4, &one, id, score,
+                                       &n, &err), WEFT_OK);
+    cr_assert(n == 1 && id[0] == 37, "a one-node type gives that node");
+    weft_index_ivf_fini(&a);
+    pq_build(e, 1, D, 0, &a);
+    cr_assert_eq(weft_index_ivf_search(&a.ivf, e, base, K, 3, 4, NULL, id, score, &n, &err),
+                 WEFT_OK);
+    cr_assert(n == 1 && id[0] == 0);
+    weft_index_ivf_fini(&a);
+    e[5 * D + 2] = NAN;
+    pq_build(e, N, D, 4, &a);
+    cr_assert_eq(weft_index_ivf_search(&a.ivf, e, e + 1 * D, N, a.ivf.n_lists, 4, NULL,
+                                       id, score, &n, &err), WEFT_OK);
+    for (size_t i = 0; i < n; i++)
+        cr_assert_neq(id[i], 5, "a row with NaN is never returned");
+    weft_index_ivf_fini(&a);
+    free(base);
+    free(e);
+}
+
+/* The AVX-512BW kernel and the portable loop sum the same integers, so they give the same
+ * lists even with no room to spare (oversample 1). */
+Test(index, pq_native_and_portable_scans_agree)
+{
+    static const size_t dims[] = { 7, 64, 200, 1030 };
+    for (size_t t = 0; t < sizeof dims / sizeof dims[0]; t++) {
+        size_t d = dims[t], n = d > 1000 ? 300 : 1500 + 7 * t;
+        float *e = random_rows(n, d, 90 + t), *q = random_rows(3, d, 95 + t);
+        weft_index_ivf_arrays a;
+        pq_build(e, n, d, 13, &a);
+        for (size_t j = 0; j < 3; j++)
+            for (size_t over = 1; over <= 4; over += 3) {
+                uint32_t x[K], y[K];
+                float xs[K], ys[K];
+                size_t nx = 0, ny = 0;
+                weft_error err;
+                weft_index_allow_native(true);
+                cr_assert_eq(weft_index_ivf_search(&a.ivf, e, q + j * d, K, 7, over, NULL, x, xs,
+                                                   &nx, &err), WEFT_OK);
+                weft_index_allow_native(false);
+                cr_assert_eq(weft_index_ivf_search(&a.ivf, e, q + j * d, K, 7, over, NULL, y, ys,
+                                                   &ny, &err), WEFT_OK);
+                weft_index_allow_native(true);
+                cr_assert_eq(nx, ny);
+                for (size_t i = 0; i < nx; i++)
+                    cr_assert(x[i] == y[i] && xs[i] == ys[i], "d %zu query %zu rank %zu", d, j,
+                              i);
+            }
+        weft_index_ivf_fini(&a);
+        free(e);
+        free(q);
+    }
+}
