@@ -240,7 +240,7 @@ void weft_index_pq_query_fini(weft_index_pq_query *qq)
 
 static bool is_better(float sa, uint32_t ia, float sb, uint32_t ib)
 {
-    return sa > sb || (sa == sb && ia < ib);
+    return (sa > sb) | ((sa == sb) & (ia < ib));   /* no branch: the outcome is a coin toss */
 }
 
 bool weft_index_pq_cands_init(weft_index_pq_cands *c, size_t keep)
@@ -285,9 +285,11 @@ static void shrink(weft_index_pq_cands *c)
         float ps = c->score[mid];
         swap_cands(c, mid, hi - 1);
         size_t i = lo;
-        for (size_t j = lo; j < hi - 1; j++)
-            if (is_better(c->score[j], c->id[j], ps, pid))
-                swap_cands(c, i++, j);
+        for (size_t j = lo; j < hi - 1; j++) {   /* Lomuto's partition without a branch */
+            bool b = is_better(c->score[j], c->id[j], ps, pid);
+            swap_cands(c, i, j);
+            i += b;
+        }
         swap_cands(c, i, hi - 1);   /* the pivot at i: better ones before, worse after */
         if (i == keep || i + 1 == keep)
             break;

@@ -612,9 +612,8 @@ int cmd_serve_main(int argc, char **argv)
     weft_error_clear(&err);
     http_live *live = NULL;
     http_daemon *server = NULL;
-    weft_err rc = http_live_start(cfg.store_dir, cfg.poll_ms, cfg.has_admin_token, &live, &err);
-    if (rc == WEFT_OK && cfg.inputs)
-        rc = http_live_set_inputs(live, cfg.inputs, &err);
+    weft_err rc = http_live_start(cfg.store_dir, cfg.poll_ms, cfg.has_admin_token, cfg.inputs,
+                                  &live, &err);
     if (rc == WEFT_OK)
         rc = http_daemon_start(&cfg, live, &server, &err);
     forget_tls(&cfg);   /* libmicrohttpd no longer needs them: GnuTLS has its own copy */

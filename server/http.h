@@ -171,10 +171,12 @@ typedef struct http_live http_live;
  * @param dir          borrowed until http_live_stop()
  * @param is_writable  open the store for writing, so that admin actions can promote and roll
  *                     back (http_live_admin); else read-only
+ * @param inputs       as http_live_set_inputs, set before the first load so that its
+ *                     coverage is measured on them (NULL: the manifest's files)
  * @return WEFT_OK, WEFT_ERR_NOMEM, WEFT_ERR_INVALID (the thread could not start)
  */
-weft_err http_live_start(const char *dir, unsigned poll_ms, bool is_writable, http_live **out,
-                         weft_error *err);
+weft_err http_live_start(const char *dir, unsigned poll_ms, bool is_writable, const char *inputs,
+                         http_live **out, weft_error *err);
 
 /** Stop the thread, release the published snapshot and close the store; NULL does nothing.
  *  Call after http_daemon_stop(): no request may still hold a model, since every snapshot

@@ -697,8 +697,8 @@ static weft_err init_sync(http_live *live, weft_error *err)
     return WEFT_OK;
 }
 
-weft_err http_live_start(const char *dir, unsigned poll_ms, bool is_writable, http_live **out,
-                         weft_error *err)
+weft_err http_live_start(const char *dir, unsigned poll_ms, bool is_writable, const char *inputs,
+                         http_live **out, weft_error *err)
 {
     http_live *live = calloc(1, sizeof *live);
     if (!live)
@@ -711,6 +711,10 @@ weft_err http_live_start(const char *dir, unsigned poll_ms, bool is_writable, ht
     weft_err rc = init_sync(live, err);
     if (rc != WEFT_OK) {
         free(live);
+        return rc;
+    }
+    if (inputs && (rc = http_live_set_inputs(live, inputs, err)) != WEFT_OK) {
+        http_live_stop(live);
         return rc;
     }
     poll_once(live);

@@ -233,8 +233,9 @@ static void start_server(void)
 
     http_scan_init(1);
     weft_error err;
-    if (http_live_start(settings.store_dir, settings.poll_ms, false, &live, &err) != WEFT_OK ||
-        http_daemon_start(&settings, live, &server, &err) != WEFT_OK)
+    if (http_live_start(settings.store_dir, settings.poll_ms, false, NULL, &live, &err)
+            != WEFT_OK
+        || http_daemon_start(&settings, live, &server, &err) != WEFT_OK)
         fuzz_fail("cannot serve: %s", err.msg);
     http_model m;
     if (!http_live_acquire(live, &m))
