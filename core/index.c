@@ -566,14 +566,7 @@ weft_err weft_index_ivf_build(const float *e, size_t n, size_t d, size_t n_lists
     /* The sample: the first n_sample of a seeded shuffle; the first nl of it start k-means. */
     weft_rng rng;
     weft_rng_seed(&rng, seed);
-    for (size_t i = 0; i < n; i++)
-        perm[i] = (uint32_t)i;
-    for (size_t i = 0; i < n_sample; i++) {
-        size_t j = i + weft_rng_below(&rng, (uint32_t)(n - i));
-        uint32_t t = perm[i];
-        perm[i] = perm[j];
-        perm[j] = t;
-    }
+    weft_rng_sample(&rng, perm, n, n_sample);
     for (size_t i = 0; i < n_sample; i++)
         augment(e + (size_t)perm[i] * d, d, max2, xa + i * da);
     memcpy(ca, xa, nl * da * sizeof *ca);

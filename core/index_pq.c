@@ -101,16 +101,10 @@ static weft_err train_codebook(const float *e, const weft_index_ivf *ix, const u
     }
     weft_rng rng;
     weft_rng_seed(&rng, seed);
-    for (size_t i = 0; i < n; i++)
-        perm[i] = (uint32_t)i;
-    for (size_t i = 0; i < n_sample; i++) {
-        size_t j = i + weft_rng_below(&rng, (uint32_t)(n - i));
-        uint32_t t = perm[i];
-        perm[i] = perm[j];
-        perm[j] = t;
+    weft_rng_sample(&rng, perm, n, n_sample);
+    for (size_t i = 0; i < n_sample; i++)
         residual(e + (size_t)ix->row_id[perm[i]] * d, ix->centroid + list_of[perm[i]] * (d + 1),
                  d, width, res + i * width);
-    }
     for (size_t m = 0; m < n_real && rc == WEFT_OK; m++) {
         for (size_t i = 0; i < n_sample; i++)
             memcpy(x + i * s, res + i * width + m * s, s * sizeof *x);

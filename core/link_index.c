@@ -34,8 +34,9 @@ bool weft_link_index_kind_parse(const char *name, weft_link_index_kind *out)
 
 weft_link_index_settings weft_link_index_defaults(weft_link_index_kind kind)
 {
-    /* 16 for product codes: their recall@10 on WN18RR's DistMult rows is about 0.97 with 80
-     * candidates and 0.99 with 160 (bench/index.sh). */
+    /* 16 for product codes: on WN18RR's DistMult rows and test queries their recall@10 was
+     * about 0.97 with 80 candidates and 0.99 with 160 (a numpy study while they were designed;
+     * bench/index.sh measures the default). */
     return (weft_link_index_settings){ .kind = kind,
                                        .oversample = kind == WEFT_LINK_INDEX_IVF_PQ ? 16 : 4,
                                        .iters = 10,
@@ -237,7 +238,8 @@ json_t *weft_link_index_json(const weft_link_index *ix)
     }
     if (o && ix->kind == WEFT_LINK_INDEX_IVF_PQ
         && (json_object_set_new(o, "subspaces", json_integer((json_int_t)v->pq.n_sub))
-            || json_object_set_new(o, "subspace_dims", json_integer((json_int_t)v->pq.sub_dims)))) {
+            || json_object_set_new(o, "subspace_dims",
+                                   json_integer((json_int_t)v->pq.sub_dims)))) {
         json_decref(o);
         return NULL;
     }

@@ -59,3 +59,15 @@ double weft_rng_double(weft_rng *rng)
 {
     return (double)(weft_rng_next(rng) >> 11) * (1.0 / 9007199254740992.0);
 }
+
+void weft_rng_sample(weft_rng *rng, uint32_t *perm, size_t n, size_t m)
+{
+    for (size_t i = 0; i < n; i++)
+        perm[i] = (uint32_t)i;
+    for (size_t i = 0; i < m; i++) {
+        size_t j = i + weft_rng_below(rng, (uint32_t)(n - i));
+        uint32_t t = perm[i];
+        perm[i] = perm[j];
+        perm[j] = t;
+    }
+}

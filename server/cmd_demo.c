@@ -578,19 +578,6 @@ static void name_nodes(struct market *m, uint32_t *pairs)
                  handle_words[1][weft_rng_below(&m->rng, 24)], b);
 }
 
-/* Puts a uniform choice of @p k of 0..n-1 in idx[0..k) (a partial Fisher-Yates). */
-static void choose_subset(weft_rng *rng, uint32_t *idx, size_t n, size_t k)
-{
-    for (size_t i = 0; i < n; i++)
-        idx[i] = (uint32_t)i;
-    for (size_t i = 0; i < k; i++) {
-        size_t j = i + weft_rng_below(rng, (uint32_t)(n - i));
-        uint32_t t = idx[i];
-        idx[i] = idx[j];
-        idx[j] = t;
-    }
-}
-
 /* "A fits B" between the parts of every two families of a kit: each part fits the variant of
  * the same rank (modulo the other family's size) and, half the time, one more. */
 static weft_err plant_fits(struct market *m, weft_error *err)
@@ -783,7 +770,7 @@ static void split_labelled(struct market *m, bool is_ring, uint32_t *idx)
 
 static weft_err plant_sellers(struct market *m, uint32_t *scratch, weft_error *err)
 {
-    choose_subset(&m->rng, scratch, m->n_sellers, m->o->n_ring);
+    weft_rng_sample(&m->rng, scratch, m->n_sellers, m->o->n_ring);
     for (size_t i = 0; i < m->o->n_ring; i++)
         m->sellers[scratch[i]].is_ring = true;
     weft_err rc = choose_ring_parts(m, err);
@@ -946,7 +933,7 @@ static weft_err plant_buyers(struct market *m, uint32_t *scratch, weft_error *er
         if (m->sellers[s].is_ring)
             ring[n_ring++] = (uint32_t)s;
     if (rc == WEFT_OK) {
-        choose_subset(&m->rng, scratch, m->n_buyers, m->o->n_ring_buyers);
+        weft_rng_sample(&m->rng, scratch, m->n_buyers, m->o->n_ring_buyers);
         for (size_t i = 0; i < m->o->n_ring_buyers; i++)
             m->buyers[scratch[i]].is_ring_account = true;
     }

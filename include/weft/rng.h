@@ -2,6 +2,7 @@
 #ifndef WEFT_RNG_H
 #define WEFT_RNG_H
 
+#include <stddef.h>
 #include <stdint.h>
 
 /**
@@ -22,5 +23,8 @@ uint32_t weft_rng_below(weft_rng *rng, uint32_t n);
 float weft_rng_float(weft_rng *rng);
 /** Uniform double in [0, 1) with 53 random bits. */
 double weft_rng_double(weft_rng *rng);
+/** 0 .. n - 1 into @p perm (n < 2^32), its first @p m (<= n) a uniform sample without
+ *  replacement in random order: the first m steps of a Fisher-Yates shuffle. */
+void weft_rng_sample(weft_rng *rng, uint32_t *perm, size_t n, size_t m);
 
 #endif

@@ -105,20 +105,23 @@ check "train --index ivf stores a clustered index" train "$S2" --index ivf
 check "nprobe tuned to recall@10 >= 0.975 (halfway from the floor 0.95 to 1)" \
     test "$(json_get "$E2E_TMP/m2.json" "(d['link']['index']['kind'], d['link']['index']['recall_at_10'] >= 0.975, d['link']['index']['lists'])")" = "('ivf', True, 208)"
 start_server "$S2" || finish
-/usr/bin/python3 - "$BASE" >"$E2E_TMP/overlap.txt" <<'PY'
+overlap() {   # overlap PATH: mean share of the exact top 10 the index path keeps, 60 nodes
+    /usr/bin/python3 - "$BASE" "$1" <<'PY'
 import json, sys, urllib.request
-base, total = sys.argv[1], 0.0
+base, path, total = sys.argv[1], sys.argv[2], 0.0
 nodes = ["n%d" % (37 * i) for i in range(60)]
 for n in nodes:
     a = json.load(urllib.request.urlopen("%s/v1/links/predict?source=%s&k=10" % (base, n)))
     b = json.load(urllib.request.urlopen("%s/v1/links/predict?source=%s&k=10&exact=true" % (base, n)))
-    assert a["path"] == "ivf" and b["path"] == "exact"
+    assert a["path"] == path and b["path"] == "exact"
     exact = {p["target"]: p["score"] for p in b["predictions"]}
     for p in a["predictions"]:   # every score returned is the exact one
         assert p["target"] not in exact or p["score"] == exact[p["target"]]
     total += len(exact.keys() & {p["target"] for p in a["predictions"]}) / max(1, len(exact))
 print("%.3f" % (total / len(nodes)))
 PY
+}
+overlap ivf >"$E2E_TMP/overlap.txt"
 check "ivf answers keep most of the exact top 10 over 60 nodes ($(cat "$E2E_TMP/overlap.txt"))" \
     awk -v r="$(cat "$E2E_TMP/overlap.txt")" 'BEGIN { exit !(r >= 0.9) }'
 curl -sS "$BASE/v1/health" >"$E2E_TMP/health.json"
@@ -148,20 +151,7 @@ S5="$E2E_TMP/ivfpq-default"
 check "train --index ivf-pq with its defaults (oversample 16)" train "$S5" --index ivf-pq
 check "train prints what it built" grep -q "^index: ivf-pq, 26 lists, .* oversample 16: recall@10" "$E2E_TMP/train.out"
 start_server "$S5" || finish
-/usr/bin/python3 - "$BASE" >"$E2E_TMP/overlap-pq.txt" <<'PY'
-import json, sys, urllib.request
-base, total = sys.argv[1], 0.0
-nodes = ["n%d" % (37 * i) for i in range(60)]
-for n in nodes:
-    a = json.load(urllib.request.urlopen("%s/v1/links/predict?source=%s&k=10" % (base, n)))
-    b = json.load(urllib.request.urlopen("%s/v1/links/predict?source=%s&k=10&exact=true" % (base, n)))
-    assert a["path"] == "ivf-pq" and b["path"] == "exact"
-    exact = {p["target"]: p["score"] for p in b["predictions"]}
-    for p in a["predictions"]:   # every score returned is the exact one
-        assert p["target"] not in exact or p["score"] == exact[p["target"]]
-    total += len(exact.keys() & {p["target"] for p in a["predictions"]}) / max(1, len(exact))
-print("%.3f" % (total / len(nodes)))
-PY
+overlap ivf-pq >"$E2E_TMP/overlap-pq.txt"
 check "ivf-pq answers keep most of the exact top 10 over 60 nodes ($(cat "$E2E_TMP/overlap-pq.txt"))" \
     awk -v r="$(cat "$E2E_TMP/overlap-pq.txt")" 'BEGIN { exit !(r >= 0.9) }'
 stop_server

@@ -346,22 +346,34 @@ Test(index, ivf_recall_and_every_list_is_the_int8_search)
     free(q);
 }
 
+/* @p n rows cycling through the @p n_base rows of @p base (d values each). */
+static float *repeated_rows(const float *base, size_t n_base, size_t n, size_t d)
+{
+    float *e = malloc(n * d * sizeof *e);
+    cr_assert_not_null(e);
+    for (size_t i = 0; i < n; i++)
+        memcpy(e + i * d, base + (i % n_base) * d, d * sizeof *e);
+    return e;
+}
+
+static size_t empty_lists(const weft_index_ivf *ix)
+{
+    size_t n = 0;
+    for (size_t l = 0; l < ix->n_lists; l++)
+        n += ix->list_off[l] == ix->list_off[l + 1];
+    return n;
+}
+
 Test(index, ivf_boundaries)
 {
     enum { N = 64, D = 8 };
     /* Four distinct rows repeated: asked for 16 lists, most stay empty. */
-    float *base = random_rows(4, D, 21), *e = malloc(N * D * sizeof *e);
-    cr_assert_not_null(e);
-    for (size_t i = 0; i < N; i++)
-        memcpy(e + i * D, base + (i % 4) * D, D * sizeof *e);
+    float *base = random_rows(4, D, 21), *e = repeated_rows(base, 4, N, D);
     weft_index_ivf_arrays a;
     weft_error err;
     cr_assert_eq(weft_index_ivf_build(e, N, D, 16, 5, 3, 1, WEFT_INDEX_LISTS_INT8, &a,
                                        &err), WEFT_OK, "%s", err.msg);
-    size_t n_empty = 0;
-    for (size_t l = 0; l < a.ivf.n_lists; l++)
-        n_empty += a.ivf.list_off[l] == a.ivf.list_off[l + 1];
-    cr_assert_geq(n_empty, 1, "duplicate rows leave lists empty");
+    cr_assert_geq(empty_lists(&a.ivf), 1, "duplicate rows leave lists empty");
     uint32_t id[N];
     float score[N];
     size_t n = 0;
@@ -579,17 +591,11 @@ Test(index, pq_recall_on_random_and_clustered_rows)
 Test(index, pq_boundaries)
 {
     enum { N = 64, D = 8 };
-    float *base = random_rows(4, D, 81), *e = malloc(N * D * sizeof *e);
-    cr_assert_not_null(e);
-    for (size_t i = 0; i < N; i++)
-        memcpy(e + i * D, base + (i % 4) * D, D * sizeof *e);
+    float *base = random_rows(4, D, 81), *e = repeated_rows(base, 4, N, D);
     weft_index_ivf_arrays a;
     weft_error err;
     pq_build(e, N, D, 16, &a);
-    size_t n_empty = 0;
-    for (size_t l = 0; l < a.ivf.n_lists; l++)
-        n_empty += a.ivf.list_off[l] == a.ivf.list_off[l + 1];
-    cr_assert_geq(n_empty, 1, "duplicate rows leave lists empty");
+    cr_assert_geq(empty_lists(&a.ivf), 1, "duplicate rows leave lists empty");
     uint32_t id[N + 8];
     float score[N + 8];
     size_t n = 0;
