@@ -136,9 +136,10 @@ fuzz-merge:
 # readme: 7.5 minutes more), once weft_gemm stopped allocating and starting threads for
 # every product (a Cora training run had taken 202 s under ASan, now 5 s).
 ASAN_E2E_SKIP := test_hotswap test_soak test_faults
-# CRITERION_JOBS=1: with tests run in parallel, Criterion 2.4 (Debian 12) itself sometimes
-# keeps a 48-byte block inside libcriterion.so at exit, which LeakSanitizer reports (seen with
-# every suite together, with none alone, never with one job); one job costs about 40 s here.
+# CRITERION_JOBS=1 (tests/run-all.sh passes it to the unit tests as -j): with tests run in
+# parallel, Criterion 2.4 (Debian 12) itself sometimes keeps a 48-byte block inside
+# libcriterion.so at exit, which LeakSanitizer reports (seen with every suite together, with
+# none alone, never with one job); one job costs about 40 s here.
 check-asan:
 	CRITERION_JOBS=1 UBSAN_OPTIONS=halt_on_error=1:print_stacktrace=1 ASAN_OPTIONS=detect_leaks=1 \
 	E2E_SKIP="$(ASAN_E2E_SKIP)" $(MAKE) BUILD=build-asan OPT="-O1 -g -fno-omit-frame-pointer -fsanitize=address,undefined" \

@@ -26,7 +26,8 @@ group() {
     [ "$rc" -ne 0 ] && [ "$2" -eq 0 ] && set -- "$1" 1
     eval "${name}_pass=$1 ${name}_fail=$2"
 }
-group unit "$BUILD/unit_tests" -j2
+# Two jobs unless CRITERION_JOBS says otherwise (make check-asan runs one: see the Makefile).
+group unit "$BUILD/unit_tests" -j"${CRITERION_JOBS:-2}"
 group e2e env BUILD="$BUILD" tests/e2e/run.sh
 group replay env BUILD="$BUILD" tests/fuzz/replay.sh
 rm -f "$log"
